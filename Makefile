@@ -1,0 +1,28 @@
+# Two commands do all set-up on a fresh machine:
+#   make lab   - JupyterLab on the quickstart notebook
+#   make test  - the whole test suite (installs what it needs itself)
+PY ?= python3
+VENV ?= .venv
+BIN := $(VENV)/bin
+
+.PHONY: lab test venv bench clean
+
+$(BIN)/.installed: pyproject.toml
+	$(PY) -m venv $(VENV)
+	$(BIN)/python -m pip install -q --upgrade pip
+	$(BIN)/python -m pip install -q -e '.[widgets,report,dev]'
+	touch $@
+
+venv: $(BIN)/.installed
+
+lab: venv
+	$(BIN)/jupyter lab notebooks/quickstart.ipynb
+
+test: venv
+	$(BIN)/python -m pytest
+
+bench: venv
+	for f in benchmarks/bench_*.py; do $(BIN)/python $$f || exit 1; done
+
+clean:
+	rm -rf $(VENV) build src/*.egg-info .pytest_cache

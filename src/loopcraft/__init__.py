@@ -1,0 +1,58 @@
+"""loopcraft: op-amp stage and control-loop design over impedance networks.
+
+The public API::
+
+    import loopcraft as lc
+    d = lc.load("design.json")           # or lc.Design.from_dict({...})
+    d.factored()                         # H(s) = K·s^n·Π(1 + s/ωz)… with formulas
+    d.transfer().poles                   # rad/s
+    d.with_values(R2="33k").transfer().response([1e3, 1e4])
+"""
+
+from __future__ import annotations
+
+from .design import FORMAT_VERSION, Design, load
+from .errors import (
+    AnalysisError,
+    ComponentValueError,
+    DesignFileError,
+    LoopcraftError,
+    ParseError,
+    SynthesisError,
+    TopologyError,
+)
+from .evaluator import Evaluator, TransferResult
+from .factored import FactoredForm
+from .factors import Factor, FactoredNumeric
+from .network import Network, parse_network
+from .stage import CircuitStage, InvertingStage, NonInvertingStage, stage_from_dict
+from .values import format_value, parse_value
+
+__version__ = "0.1.0"
+
+__all__ = [
+    "FORMAT_VERSION",
+    "AnalysisError",
+    "CircuitStage",
+    "ComponentValueError",
+    "Design",
+    "DesignFileError",
+    "Evaluator",
+    "Factor",
+    "FactoredForm",
+    "FactoredNumeric",
+    "InvertingStage",
+    "LoopcraftError",
+    "Network",
+    "NonInvertingStage",
+    "ParseError",
+    "SynthesisError",
+    "TopologyError",
+    "TransferResult",
+    "format_value",
+    "load",
+    "parse_network",
+    "parse_value",
+    "stage_from_dict",
+    "__version__",
+]

@@ -1,0 +1,174 @@
+"""The ``loopcraft`` command line.
+
+Subcommands::
+
+    loopcraft analyze FILE [--json]
+    loopcraft response FILE --hz F [F ...] [--json]
+
+Errors go to standard error with exit status 2.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import sys
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+
+from .design import Design, load
+from .errors import LoopcraftError
+from .values import format_value
+
+__all__ = ["main", "analyze_dict", "response_dict"]
+
+
+def _pairs(roots: np.ndarray) -> list[list[float]]:
+    return [[float(r.real), float(r.imag)] for r in sorted(roots, key=lambda r: (abs(r), r.imag))]
+
+
+def analyze_dict(design: Design) -> dict[str, Any]:
+    """The ``analyze --json`` document for a design (roots in rad/s, corners in Hz)."""
+    ff = design.factored()
+    tr = ff.result
+    out: dict[str, Any] = {
+        "title": design.title,
+        "zeros_rad_s": _pairs(tr.zeros),
+        "poles_rad_s": _pairs(tr.poles),
+        "factored": ff.to_dict(),
+        "dc_gain": _finite_or_text(tr.dc_gain()),
+        "hf_gain": _finite_or_text(tr.hf_gain()),
+    }
+    out.update(_extra_analysis(design))
+    return out
+
+
+def _extra_analysis(design: Design) -> dict[str, Any]:
+    """Sections added by the loop analysis when an op-amp or plant is given."""
+    try:
+        from .loop import analysis_sections
+    except ImportError:  # loop analysis not installed in this build
+        return {}
+    return analysis_sections(design)
+
+
+def _finite_or_text(x: float) -> float | str:
+    return x if math.isfinite(x) else "inf"
+
+
+def response_dict(design: Design, f_hz: Sequence[float]) -> dict[str, Any]:
+    """The ``response --json`` document: magnitude (dB) and phase (degrees) per frequency (Hz)."""
+    f = np.asarray(f_hz, dtype=float)
+    try:
+        from .loop import response_columns
+    except ImportError:
+        cols = _ideal_columns(design, f)
+    else:
+        cols = response_columns(design, f)
+    points = [{k: float(v[i]) if k != "f_hz" else float(f[i]) for k, v in cols.items()} for i in range(len(f))]
+    return {"points": points}
+
+
+def _ideal_columns(design: Design, f: np.ndarray) -> dict[str, np.ndarray]:
+    h = design.transfer().response(f)
+    return {"f_hz": f, "mag_db": 20 * np.log10(np.abs(h)), "phase_deg": np.degrees(np.angle(h))}
+
+
+def _print_summary(design: Design) -> None:
+    ff = design.factored()
+    tr = ff.result
+    print(design.title or "(untitled design)")
+    print(f"stage: {design.stage.kind}")
+    print()
+    print(ff)
+    print()
+    print("zeros (rad/s):", ", ".join(_root_text(z) for z in sorted(tr.zeros, key=abs)) or "none")
+    print("poles (rad/s):", ", ".join(_root_text(p) for p in sorted(tr.poles, key=abs)) or "none")
+    dc, hf = tr.dc_gain(), tr.hf_gain()
+    print(f"DC gain: {_gain_text(dc)}   high-frequency gain: {_gain_text(hf)}")
+    extra = _extra_analysis(design)
+    for line in extra.get("summary_lines", []):
+        print(line)
+
+
+def _root_text(r: complex) -> str:
+    hz = f" ({format_value(abs(r) / (2 * math.pi), 'Hz')})"
+    if r.imag == 0:
+        return f"{r.real:.6g}{hz if r else ''}"
+    return f"{r.real:.6g}{r.imag:+.6g}j{hz}"
+
+
+def _gain_text(x: float) -> str:
+    if math.isinf(x):
+        return "infinite"
+    if x == 0:
+        return "0"
+    return f"{x:.6g} V/V ({20 * math.log10(abs(x)):.2f} dB)"
+
+
+def _parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(prog="loopcraft", description="Analyse op-amp stages and the loops they close.")
+    sub = p.add_subparsers(dest="command", required=True)
+    a = sub.add_parser("analyze", help="factored form, corners, poles and zeros of a design file")
+    a.add_argument("file")
+    a.add_argument("--json", action="store_true", help="machine-readable output")
+    r = sub.add_parser("response", help="frequency response at given frequencies")
+    r.add_argument("file")
+    r.add_argument("--hz", nargs="+", required=True, type=_freq, help="frequencies in Hz")
+    r.add_argument("--json", action="store_true", help="machine-readable output")
+    _add_more(sub)
+    return p
+
+
+def _add_more(sub) -> None:
+    try:
+        from .cli_more import add_commands
+    except ImportError:
+        return
+    add_commands(sub)
+
+
+def _freq(text: str) -> float:
+    from .values import parse_value
+
+    try:
+        return parse_value(text, name="--hz")
+    except LoopcraftError as err:
+        raise argparse.ArgumentTypeError(str(err)) from err
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Run the command line; returns the exit status (0 ok, 2 error)."""
+    args = _parser().parse_args(argv)
+    try:
+        if args.command == "analyze":
+            design = load(args.file)
+            if args.json:
+                print(json.dumps(analyze_dict(design), indent=2))
+            else:
+                _print_summary(design)
+            return 0
+        if args.command == "response":
+            design = load(args.file)
+            doc = response_dict(design, args.hz)
+            if args.json:
+                print(json.dumps(doc, indent=2))
+            else:
+                keys = list(doc["points"][0].keys()) if doc["points"] else []
+                print("  ".join(f"{k:>16s}" for k in keys))
+                for pt in doc["points"]:
+                    print("  ".join(f"{pt[k]:16.6g}" for k in keys))
+            return 0
+        return args.handler(args)
+    except LoopcraftError as err:
+        print(f"loopcraft: error: {err}", file=sys.stderr)
+        return 2
+    except BrokenPipeError:
+        return 0
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

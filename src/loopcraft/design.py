@@ -1,0 +1,297 @@
+"""Designs: a stage, its component values and optional analysis sections.
+
+A design file is JSON of loopcraft's own, versioned form::
+
+    {"loopcraft": 1,
+     "title": "Error amplifier, 48 V bus converter",
+     "stage": {"kind": "inverting", "input": "R1 || (R3 + C3)", "feedback": "(R2 + C1) || C2"},
+     "values": {"R1": "10k", "R2": "22k", "R3": "470", "C1": "6.8n", "C2": "150p", "C3": "3.3n"},
+     "notes": "free text"}
+
+Optional sections: ``opamp``, ``plant``, ``feedback_gain``, ``tolerances``,
+``spec``. Loading validates every key and never executes anything; errors
+carry the key path. Saving is atomic (temporary file, then rename).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import tempfile
+from collections.abc import Mapping
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any
+
+from ._symbols import element_kind
+from .derivation import Derivation, derive
+from .errors import ComponentValueError, DesignFileError, LoopcraftError
+from .evaluator import Evaluator, TransferResult, compile_derivation
+from .factored import FactoredForm
+from .stage import Stage, stage_from_dict
+from .values import parse_value
+
+__all__ = ["Design", "load", "FORMAT_VERSION"]
+
+#: The design-file format version this package writes and reads.
+FORMAT_VERSION = 1
+
+_TOP_KEYS = ("loopcraft", "title", "stage", "values", "notes", "opamp", "plant",
+             "feedback_gain", "tolerances", "spec")
+
+
+def _no_duplicates(pairs: list[tuple[str, Any]]) -> dict[str, Any]:
+    out: dict[str, Any] = {}
+    for k, v in pairs:
+        if k in out:
+            raise DesignFileError(f"key {k!r} appears twice in one object", k)
+        out[k] = v
+    return out
+
+
+def _parse_values(raw: Any, stage: Stage, key_path: str = "values") -> tuple[dict[str, float], dict[str, Any]]:
+    if not isinstance(raw, Mapping):
+        raise DesignFileError(f"expected an object of designator: value (got {type(raw).__name__})", key_path)
+    names = stage.component_names
+    for k in raw:
+        if k not in names:
+            raise DesignFileError(f"no element {k!r} in the stage (elements: {', '.join(names)})", f"{key_path}.{k}")
+    values: dict[str, float] = {}
+    given: dict[str, Any] = {}
+    for n in names:
+        if n not in raw:
+            raise DesignFileError(f"missing value for {n}", f"{key_path}.{n}")
+        try:
+            values[n] = parse_value(raw[n], name=n, kind=element_kind(n))
+        except ComponentValueError as err:
+            raise DesignFileError(str(err), f"{key_path}.{n}") from err
+        given[n] = raw[n]
+    return values, given
+
+
+@dataclass(frozen=True, eq=False)
+class Design:
+    """An op-amp stage with component values and optional analysis sections.
+
+    Build one with :meth:`from_dict` or :func:`load`; derive new ones with
+    :meth:`with_values` (designs are immutable).
+
+    Parameters
+    ----------
+    stage : Stage
+        The topology.
+    values : mapping of str to float
+        Component values in SI base units (ohms, farads, henries).
+    given : mapping of str to str or float
+        The values as written (``"4k7"``), kept so a file round-trips unchanged.
+    title, notes : str
+        Free text.
+    opamp : OpAmp or None
+        The real amplifier, when given (``opamp`` section).
+    plant : Plant or None
+        The plant the stage closes a loop around (``plant`` section).
+    feedback_gain : float
+        Divider or sensor gain between the plant output and the stage, V/V.
+    tolerances, spec : mapping or None
+        The ``tolerances`` and ``spec`` sections, validated by their modules.
+    """
+
+    stage: Stage
+    values: Mapping[str, float]
+    given: Mapping[str, Any] = field(default_factory=dict)
+    title: str = ""
+    notes: str = ""
+    opamp: Any = None
+    plant: Any = None
+    feedback_gain: float = 1.0
+    tolerances: Mapping[str, Any] | None = None
+    spec: Mapping[str, Any] | None = None
+
+    # -- construction ----------------------------------------------------
+    @classmethod
+    def from_dict(cls, d: Mapping[str, Any]) -> Design:
+        """Build and validate a design from its dict (the parsed JSON file).
+
+        Raises
+        ------
+        DesignFileError
+            Any unknown or missing key, bad value, or undefined stage, with its key path.
+        """
+        if not isinstance(d, Mapping):
+            raise DesignFileError(f"a design is a JSON object (got {type(d).__name__})")
+        for k in d:
+            if k not in _TOP_KEYS:
+                raise DesignFileError(f"unknown key {k!r} (allowed: {', '.join(_TOP_KEYS)})", str(k))
+        if "loopcraft" not in d:
+            raise DesignFileError(f"missing format version (expected \"loopcraft\": {FORMAT_VERSION})", "loopcraft")
+        version = d["loopcraft"]
+        if not isinstance(version, int) or isinstance(version, bool) or version < 1:
+            raise DesignFileError(f"format version must be a positive integer (got {version!r})", "loopcraft")
+        if version > FORMAT_VERSION:
+            raise DesignFileError(
+                f"format version {version} is newer than this loopcraft reads ({FORMAT_VERSION}); upgrade loopcraft",
+                "loopcraft",
+            )
+        for k in ("stage", "values"):
+            if k not in d:
+                raise DesignFileError(f"missing section {k!r}", k)
+        for k in ("title", "notes"):
+            if k in d and not isinstance(d[k], str):
+                raise DesignFileError(f"expected text (got {d[k]!r})", k)
+        stage = stage_from_dict(d["stage"], "stage")
+        values, given = _parse_values(d["values"], stage)
+        opamp = plant = None
+        if "opamp" in d:
+            from .opamp import OpAmp
+
+            opamp = _wrap(lambda: OpAmp.from_dict(d["opamp"], "opamp"), "opamp")
+        if "plant" in d:
+            from .plant import plant_from_dict
+
+            plant = _wrap(lambda: plant_from_dict(d["plant"], "plant"), "plant")
+        fb = d.get("feedback_gain", 1.0)
+        if isinstance(fb, bool) or not isinstance(fb, int | float) or not math.isfinite(fb) or fb <= 0:
+            raise DesignFileError(f"feedback_gain must be a number > 0, V/V (got {fb!r})", "feedback_gain")
+        tol = d.get("tolerances")
+        spec = d.get("spec")
+        if tol is not None:
+            from .tolerance import validate_tolerances
+
+            validate_tolerances(tol, stage.component_names, "tolerances")
+        if spec is not None:
+            from .spec import validate_spec
+
+            validate_spec(spec, "spec")
+        return cls(stage, values, given, d.get("title", ""), d.get("notes", ""), opamp, plant,
+                   float(fb), tol, spec)
+
+    def to_dict(self) -> dict[str, Any]:
+        """The design as a JSON-ready dict; ``Design.from_dict(d.to_dict())`` round-trips."""
+        out: dict[str, Any] = {"loopcraft": FORMAT_VERSION}
+        if self.title:
+            out["title"] = self.title
+        out["stage"] = self.stage.to_dict()
+        out["values"] = {n: self.given.get(n, self.values[n]) for n in self.stage.component_names}
+        if self.opamp is not None:
+            out["opamp"] = self.opamp.to_dict()
+        if self.plant is not None:
+            out["plant"] = self.plant.to_dict()
+        if self.feedback_gain != 1.0:
+            out["feedback_gain"] = self.feedback_gain
+        if self.tolerances is not None:
+            out["tolerances"] = json.loads(json.dumps(self.tolerances))
+        if self.spec is not None:
+            out["spec"] = json.loads(json.dumps(self.spec))
+        if self.notes:
+            out["notes"] = self.notes
+        return out
+
+    def to_json(self) -> str:
+        """The design file text (UTF-8 JSON, two-space indent, trailing newline)."""
+        return json.dumps(self.to_dict(), indent=2, ensure_ascii=False) + "\n"
+
+    def save(self, path: str | os.PathLike[str]) -> Path:
+        """Write the design file atomically (temporary file in the same folder, then rename).
+
+        Returns
+        -------
+        Path
+            The path written.
+        """
+        path = Path(path)
+        text = self.to_json()
+        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent or ".")
+        try:
+            with os.fdopen(fd, "w", encoding="utf-8") as fh:
+                fh.write(text)
+                fh.flush()
+                os.fsync(fh.fileno())
+            os.replace(tmp, path)
+        except BaseException:
+            if os.path.exists(tmp):
+                os.unlink(tmp)
+            raise
+        return path
+
+    def with_values(self, values: Mapping[str, Any] | None = None, /, **kw: Any) -> Design:
+        """A new design with some values changed (text or numbers in SI base units).
+
+        Raises
+        ------
+        ComponentValueError
+            An unknown designator or a bad value.
+        """
+        changes = {**(values or {}), **kw}
+        names = self.stage.component_names
+        new_vals = dict(self.values)
+        new_given = dict(self.given)
+        for k, v in changes.items():
+            if k not in names:
+                raise ComponentValueError(f"no element named {k!r} in this stage (elements: {', '.join(names)})")
+            new_vals[k] = parse_value(v, name=k, kind=element_kind(k))
+            new_given[k] = v
+        return replace(self, values=new_vals, given=new_given)
+
+    def with_sections(self, **sections: Any) -> Design:
+        """A new design with ``opamp``, ``plant``, ``feedback_gain``, ``title`` … replaced."""
+        return replace(self, **sections)
+
+    def __eq__(self, other: object) -> bool:
+        return isinstance(other, Design) and self.to_dict() == other.to_dict()
+
+    __hash__ = None  # type: ignore[assignment]
+
+    # -- analysis --------------------------------------------------------
+    @property
+    def derivation(self) -> Derivation:
+        """The cached symbolic derivation of the topology."""
+        return derive(self.stage)
+
+    def compile(self) -> Evaluator:
+        """The compiled fast evaluator of this topology (cached per topology)."""
+        return compile_derivation(self.derivation)
+
+    def transfer(self) -> TransferResult:
+        """The ideal transfer function at the current values (zeros/poles in rad/s)."""
+        return self.compile()(self.values)
+
+    def factored(self) -> FactoredForm:
+        """The normalized factored form with each corner's formula and value."""
+        return FactoredForm(self.derivation, self.transfer())
+
+
+def _wrap(build, key_path: str):
+    try:
+        return build()
+    except DesignFileError:
+        raise
+    except LoopcraftError as err:
+        raise DesignFileError(str(err), key_path) from err
+
+
+def load(path: str | os.PathLike[str]) -> Design:
+    """Read and validate a design file.
+
+    Parameters
+    ----------
+    path : str or path-like
+        A JSON design file.
+
+    Raises
+    ------
+    DesignFileError
+        The file is missing, is not JSON (line and column given), or breaks the format.
+    """
+    p = Path(path)
+    try:
+        text = p.read_text(encoding="utf-8")
+    except OSError as err:
+        raise DesignFileError(f"cannot read {str(p)!r}: {err.strerror}") from err
+    except UnicodeDecodeError as err:
+        raise DesignFileError(f"{str(p)!r} is not UTF-8 text") from err
+    try:
+        data = json.loads(text, object_pairs_hook=_no_duplicates)
+    except json.JSONDecodeError as err:
+        raise DesignFileError(f"{p.name}: not valid JSON: {err.msg} at line {err.lineno}, column {err.colno}") from err
+    return Design.from_dict(data)

@@ -1,0 +1,239 @@
+"""The numeric normalized factored form shared by stages, plants and loops.
+
+A transfer function in normalized factored form is
+
+.. math::
+
+    H(s) = K \\, s^{n} \\,
+        \\frac{\\prod_z (1 \\pm s/\\omega_z) \\prod_{z2} (1 \\pm s/(Q\\omega_0) + s^2/\\omega_0^2)}
+              {\\prod_p (1 \\pm s/\\omega_p) \\prod_{p2} (1 \\pm s/(Q\\omega_0) + s^2/\\omega_0^2)}
+
+with ``+`` for left-half-plane roots and ``-`` for right-half-plane roots,
+``n > 0`` for zeros at the origin and ``n < 0`` for poles at the origin.
+All frequencies are angular, in rad/s.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .errors import AnalysisError
+
+__all__ = ["Factor", "FactoredNumeric", "factors_from_roots"]
+
+
+@dataclass(frozen=True)
+class Factor:
+    """One first- or second-order factor of the normalized factored form.
+
+    Parameters
+    ----------
+    role : {"zero", "pole"}
+        Whether the factor sits in the numerator or the denominator.
+    order : {1, 2}
+        1 for ``(1 ± s/ω)``, 2 for ``(1 ± s/(Q·ω0) + s²/ω0²)``.
+    omega_rad_s : float
+        Corner frequency ω (order 1) or natural frequency ω0 (order 2), rad/s, > 0.
+    q : float or None
+        Quality factor Q of a second-order factor (> 0); None for order 1.
+    rhp : bool
+        True when the root(s) lie in the right half plane (the ``-`` sign).
+    formula : str or None
+        The corner (ω or ω0) as a formula in the component symbols, when the
+        polynomial factors over the symbols; None when only numeric.
+    q_formula : str or None
+        Q as a formula in the component symbols (order 2 only).
+    """
+
+    role: str
+    order: int
+    omega_rad_s: float
+    q: float | None = None
+    rhp: bool = False
+    formula: str | None = None
+    q_formula: str | None = None
+
+    def __post_init__(self) -> None:
+        if self.role not in ("zero", "pole"):
+            raise AnalysisError(f"factor role must be 'zero' or 'pole' (got {self.role!r})")
+        if self.order not in (1, 2):
+            raise AnalysisError(f"factor order must be 1 or 2 (got {self.order!r})")
+        if not (math.isfinite(self.omega_rad_s) and self.omega_rad_s > 0):
+            raise AnalysisError(f"factor frequency must be finite and > 0 rad/s (got {self.omega_rad_s!r})")
+        if self.order == 2:
+            if self.q is None or not (math.isfinite(self.q) and self.q > 0):
+                raise AnalysisError(f"second-order factor needs a finite Q > 0 (got {self.q!r})")
+        elif self.q is not None:
+            raise AnalysisError("a first-order factor has no Q")
+
+    @property
+    def f_hz(self) -> float:
+        """Corner or natural frequency in Hz."""
+        return self.omega_rad_s / (2.0 * math.pi)
+
+    @property
+    def coefficients(self) -> tuple[float, ...]:
+        """Normalized coefficients ``(1, c1, c2)`` in ascending powers of s (rad/s)."""
+        sign = -1.0 if self.rhp else 1.0
+        if self.order == 1:
+            return (1.0, sign / self.omega_rad_s)
+        assert self.q is not None
+        return (1.0, sign / (self.q * self.omega_rad_s), 1.0 / self.omega_rad_s**2)
+
+    def roots(self) -> np.ndarray:
+        """Roots of the factor in rad/s (complex array of length ``order``)."""
+        w = self.omega_rad_s
+        sign = 1.0 if self.rhp else -1.0
+        if self.order == 1:
+            return np.array([sign * w], dtype=complex)
+        assert self.q is not None
+        zeta = 1.0 / (2.0 * self.q)
+        if zeta < 1.0:
+            im = w * math.sqrt(1.0 - zeta * zeta)
+            re = sign * zeta * w
+            return np.array([complex(re, im), complex(re, -im)])
+        # Two real roots; compute the small one without cancellation.
+        d = math.sqrt(zeta * zeta - 1.0)
+        big = w * (zeta + d)
+        small = w * w / big
+        return np.array([sign * big, sign * small], dtype=complex)
+
+    def evaluate(self, s: np.ndarray) -> np.ndarray:
+        """Value of the factor at complex frequencies ``s`` (rad/s)."""
+        c = self.coefficients
+        s = np.asarray(s, dtype=complex)
+        if self.order == 1:
+            return 1.0 + c[1] * s
+        return 1.0 + s * (c[1] + c[2] * s)
+
+
+@dataclass(frozen=True)
+class FactoredNumeric:
+    """A transfer function as gain, origin order and first/second-order factors.
+
+    Parameters
+    ----------
+    gain : float
+        The constant K (units of (rad/s)^(-n) when ``origin_order`` is n).
+    origin_order : int
+        n: > 0 for zeros at the origin, < 0 for poles at the origin.
+    factors : tuple of Factor
+        The remaining factors, each normalized to 1 at s = 0.
+    gain_formula : str or None
+        K as a formula in the component symbols, when known.
+    """
+
+    gain: float
+    origin_order: int = 0
+    factors: tuple[Factor, ...] = field(default_factory=tuple)
+    gain_formula: str | None = None
+
+    @property
+    def zeros(self) -> tuple[Factor, ...]:
+        """The numerator factors."""
+        return tuple(f for f in self.factors if f.role == "zero")
+
+    @property
+    def poles(self) -> tuple[Factor, ...]:
+        """The denominator factors."""
+        return tuple(f for f in self.factors if f.role == "pole")
+
+    def zero_roots(self) -> np.ndarray:
+        """All zeros in rad/s, origin zeros included (complex array)."""
+        return self._roots("zero", max(self.origin_order, 0))
+
+    def pole_roots(self) -> np.ndarray:
+        """All poles in rad/s, origin poles included (complex array)."""
+        return self._roots("pole", max(-self.origin_order, 0))
+
+    def _roots(self, role: str, n_origin: int) -> np.ndarray:
+        parts = [np.zeros(n_origin, dtype=complex)]
+        parts += [f.roots() for f in self.factors if f.role == role]
+        return np.concatenate(parts)
+
+    def evaluate(self, s: np.ndarray) -> np.ndarray:
+        """Value of the transfer function at complex frequencies ``s`` (rad/s)."""
+        s = np.asarray(s, dtype=complex)
+        out = np.full(s.shape, complex(self.gain))
+        if self.origin_order:
+            out = out * s**self.origin_order
+        for f in self.factors:
+            v = f.evaluate(s)
+            out = out * v if f.role == "zero" else out / v
+        return out
+
+    def response(self, f_hz: np.ndarray) -> np.ndarray:
+        """Complex frequency response at ``f_hz`` (Hz); evaluated at s = j·2π·f."""
+        return self.evaluate(2j * np.pi * np.asarray(f_hz, dtype=float))
+
+    def __mul__(self, other: FactoredNumeric) -> FactoredNumeric:
+        """Product of two transfer functions (factors concatenated, no cancellation)."""
+        if not isinstance(other, FactoredNumeric):
+            return NotImplemented
+        return FactoredNumeric(
+            self.gain * other.gain,
+            self.origin_order + other.origin_order,
+            self.factors + other.factors,
+        )
+
+
+def _real_factors_from_roots(roots: Iterable[complex], role: str, rel_tol: float) -> tuple[list[Factor], int]:
+    """Group roots into first/second-order factors; return (factors, origin count)."""
+    factors: list[Factor] = []
+    origin = 0
+    pending = [complex(r) for r in roots]
+    scale = max([abs(r) for r in pending] + [0.0])
+    tiny = scale * 1e-13
+    reals: list[float] = []
+    cplx: list[complex] = []
+    for r in pending:
+        if abs(r) <= tiny:
+            origin += 1
+        elif abs(r.imag) <= rel_tol * abs(r):
+            reals.append(r.real)
+        else:
+            cplx.append(r)
+    for x in reals:
+        factors.append(Factor(role, 1, abs(x), rhp=x > 0))
+    upper = [r for r in cplx if r.imag > 0]
+    lower = [r for r in cplx if r.imag < 0]
+    if len(upper) != len(lower):
+        raise AnalysisError("complex roots do not come in conjugate pairs; coefficients must be real")
+    for r in upper:
+        w0 = abs(r)
+        q = w0 / (2.0 * abs(r.real)) if r.real != 0 else math.inf
+        if not math.isfinite(q):
+            q = 1e15  # lossless pair: keep it representable
+        factors.append(Factor(role, 2, w0, q=q, rhp=r.real > 0))
+    return factors, origin
+
+
+def factors_from_roots(
+    zeros: Sequence[complex],
+    poles: Sequence[complex],
+    gain: float,
+    *,
+    rel_tol: float = 1e-9,
+) -> FactoredNumeric:
+    """Build the normalized factored form from roots and a normalized gain.
+
+    Parameters
+    ----------
+    zeros, poles : sequence of complex
+        Roots in rad/s. Complex roots must come in conjugate pairs.
+    gain : float
+        The normalized gain K of the factored form (not the zpk leading gain).
+    rel_tol : float
+        A root whose imaginary part is below ``rel_tol·|root|`` counts as real.
+
+    Returns
+    -------
+    FactoredNumeric
+    """
+    zf, nz = _real_factors_from_roots(zeros, "zero", rel_tol)
+    pf, npl = _real_factors_from_roots(poles, "pole", rel_tol)
+    return FactoredNumeric(float(gain), nz - npl, tuple(zf + pf))

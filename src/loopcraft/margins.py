@@ -1,0 +1,496 @@
+"""Gain crossovers, phase margins and gain margins of a loop gain.
+
+Sign convention
+---------------
+The loop gain ``L(s)`` excludes the minus sign of the summing junction: the
+closed loop is ``L/(1 + L)`` and the stability boundary is ``L = -1``. Hence
+
+* at every gain crossover (``|L| = 1``) the phase margin is
+  ``PM = 180° + ∠L``, with ∠L wrapped so that PM lies in (-180°, 180°];
+* at every phase crossover (``∠L = -180° mod 360°``) the gain margin is
+  ``GM = -20·log10|L|`` dB (positive when ``|L| < 1`` there).
+
+Method
+------
+The loop is sampled on a dense logarithmic grid; every sign change of
+``log|L|`` and every passage of the unwrapped phase through an odd multiple of
+180° brackets one crossing, which :func:`scipy.optimize.brentq` refines in
+log-frequency. A pair of crossings closer together than one grid step (a
+very narrow resonant peak) can be missed by :func:`loop_margins`;
+:func:`loop_margins_factored` adds grid points around every second-order
+factor in proportion to its Q, and uses the analytic (continuous) phase.
+
+Frequencies are in Hz at the interface; the loop itself is evaluated at
+complex ``s`` in rad/s (``s = j·2π·f``).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from dataclasses import dataclass
+from numbers import Real
+
+import numpy as np
+from scipy.optimize import brentq
+
+from .asymptote import _LOG10_2PI, _check_fn, _magnitude_breaks, exact_mag_db, exact_phase_deg
+from .errors import AnalysisError
+from .factors import FactoredNumeric
+
+__all__ = [
+    "Crossover",
+    "GainMargin",
+    "LoopMargins",
+    "loop_margins",
+    "loop_margins_factored",
+    "slope_db_per_decade",
+]
+
+_MAX_GRID_POINTS = 2_000_000
+_SLOPE_STEP_DECADES = 1e-4
+_XTOL_DECADES = 1e-13
+
+LoopFunction = Callable[[np.ndarray], np.ndarray]
+
+
+@dataclass(frozen=True)
+class Crossover:
+    """One gain crossover, ``|L(j·2π·f)| = 1``.
+
+    Parameters
+    ----------
+    f_hz : float
+        Crossover frequency, Hz.
+    phase_margin_deg : float
+        ``180° + ∠L`` at the crossover, degrees, in (-180°, 180°].
+    slope_db_per_decade : float
+        Slope of ``20·log10|L|`` against ``log10 f`` at the crossover, dB/decade.
+    """
+
+    f_hz: float
+    phase_margin_deg: float
+    slope_db_per_decade: float
+
+
+@dataclass(frozen=True)
+class GainMargin:
+    """One phase crossover, ``∠L = -180° (mod 360°)``.
+
+    Parameters
+    ----------
+    f_hz : float
+        Phase-crossover frequency, Hz.
+    gain_margin_db : float
+        ``-20·log10|L|`` at the phase crossover, dB (negative when ``|L| > 1``).
+    """
+
+    f_hz: float
+    gain_margin_db: float
+
+
+@dataclass(frozen=True)
+class LoopMargins:
+    """All crossovers and phase crossovers of a loop in a band.
+
+    Parameters
+    ----------
+    crossovers : tuple of Crossover
+        Every gain crossover in the band, by increasing frequency.
+    gain_margins : tuple of GainMargin
+        Every phase crossover in the band, by increasing frequency.
+    """
+
+    crossovers: tuple[Crossover, ...]
+    gain_margins: tuple[GainMargin, ...]
+
+    @property
+    def phase_margin_deg(self) -> float | None:
+        """The worst (minimum) phase margin over all crossovers, degrees; None if none."""
+        if not self.crossovers:
+            return None
+        return min(c.phase_margin_deg for c in self.crossovers)
+
+    @property
+    def gain_margin_db(self) -> float | None:
+        """The worst (minimum) gain margin over all phase crossovers, dB; None if none.
+
+        In a conditionally stable loop this is the (negative) margin of a
+        phase crossover below the gain crossover, where ``|L| > 1``.
+        """
+        if not self.gain_margins:
+            return None
+        return min(g.gain_margin_db for g in self.gain_margins)
+
+    def to_dict(self) -> dict:
+        """Plain-data form (frequencies in Hz, margins in degrees and dB).
+
+        Returns
+        -------
+        dict
+            ``{"crossovers": [{"f_hz", "phase_margin_deg"}, ...],
+            "gain_margins": [{"f_hz", "gain_margin_db"}, ...]}``.
+        """
+        return {
+            "crossovers": [
+                {"f_hz": float(c.f_hz), "phase_margin_deg": float(c.phase_margin_deg)}
+                for c in self.crossovers
+            ],
+            "gain_margins": [
+                {"f_hz": float(g.f_hz), "gain_margin_db": float(g.gain_margin_db)}
+                for g in self.gain_margins
+            ],
+        }
+
+
+# --------------------------------------------------------------------------- helpers
+
+
+def _wrap_pm(pm_deg: float) -> float:
+    """Wrap a phase margin into (-180°, 180°]."""
+    x = math.fmod(pm_deg, 360.0)
+    if x <= -180.0:
+        x += 360.0
+    elif x > 180.0:
+        x -= 360.0
+    return x
+
+
+def _wrap180(x: np.ndarray | float) -> np.ndarray:
+    """Wrap degrees into [-180°, 180°)."""
+    return (np.asarray(x) + 180.0) % 360.0 - 180.0
+
+
+def _eval_loop(loop: LoopFunction, f_hz: np.ndarray) -> np.ndarray:
+    """Evaluate ``loop`` at s = j·2π·f and check the result."""
+    s = 2j * np.pi * f_hz
+    try:
+        value = np.asarray(loop(s), dtype=complex)
+    except (TypeError, ValueError) as exc:
+        raise AnalysisError(
+            "loop(s) must return a complex array for a complex array s in rad/s "
+            f"(failed with {exc!r})"
+        ) from exc
+    if value.shape != s.shape:
+        raise AnalysisError(
+            f"loop(s) must return an array of the shape of s {s.shape!r} "
+            f"(got shape {value.shape!r})"
+        )
+    bad = ~np.isfinite(value) | (value == 0)
+    if np.any(bad):
+        i = int(np.argmax(bad))
+        raise AnalysisError(
+            f"loop(s) must be finite and non-zero in the band "
+            f"(got {complex(value.flat[i])!r} at f_hz={float(f_hz.flat[i])!r})"
+        )
+    return value
+
+
+def _check_band(f_min_hz: float, f_max_hz: float) -> None:
+    for name, v in (("f_min_hz", f_min_hz), ("f_max_hz", f_max_hz)):
+        if not isinstance(v, Real) or isinstance(v, bool) or not (math.isfinite(v) and v > 0):
+            raise AnalysisError(f"{name} must be a finite frequency > 0 Hz (got {v!r})")
+    if not f_min_hz < f_max_hz:
+        raise AnalysisError(
+            f"f_min_hz must be below f_max_hz (got f_min_hz={f_min_hz!r}, f_max_hz={f_max_hz!r})"
+        )
+
+
+def _log_grid(f_min_hz: float, f_max_hz: float, points_per_decade: int) -> np.ndarray:
+    """log10 of a logarithmic grid (Hz) covering the band, ends included."""
+    if (
+        not isinstance(points_per_decade, (int, np.integer))
+        or isinstance(points_per_decade, bool)
+        or points_per_decade < 2
+    ):
+        raise AnalysisError(
+            f"points_per_decade must be an integer >= 2 (got {points_per_decade!r})"
+        )
+    u0, u1 = math.log10(f_min_hz), math.log10(f_max_hz)
+    n = int(math.ceil((u1 - u0) * points_per_decade)) + 1
+    n = max(n, 2)
+    if n > _MAX_GRID_POINTS:
+        raise AnalysisError(
+            f"band {f_min_hz!r}..{f_max_hz!r} Hz at {points_per_decade!r} points/decade "
+            f"needs {n!r} points; expected at most {_MAX_GRID_POINTS!r} "
+            "(narrow the band or lower the density)"
+        )
+    return np.linspace(u0, u1, n)
+
+
+def _refine(func: Callable[[float], float], ua: float, ub: float, ga: float, gb: float) -> float:
+    """Root of ``func`` in [ua, ub] (log10 Hz); the ends take their grid values."""
+
+    def h(u: float) -> float:
+        if u == ua:
+            return ga
+        if u == ub:
+            return gb
+        return func(u)
+
+    return float(brentq(h, ua, ub, xtol=_XTOL_DECADES))
+
+
+def _mag_roots(u: np.ndarray, g: np.ndarray, func: Callable[[float], float]) -> list[float]:
+    """All roots (log10 Hz) of a function sampled as ``g`` on ``u``."""
+    roots: list[float] = [float(x) for x in u[g == 0.0]]
+    idx = np.nonzero(g[:-1] * g[1:] < 0.0)[0]
+    for i in idx:
+        roots.append(_refine(func, float(u[i]), float(u[i + 1]), float(g[i]), float(g[i + 1])))
+    return roots
+
+
+def _phase_roots(
+    u: np.ndarray, phase_deg: np.ndarray, func: Callable[[float, float], float]
+) -> list[float]:
+    """Passages (log10 Hz) of a continuous phase through -180° + k·360°.
+
+    ``func(u, ref_deg)`` returns the phase at ``u`` on the branch nearest ``ref_deg``.
+    """
+    m = (phase_deg + 180.0) / 360.0  # crossings at integer m
+    hits: set[int] = set(np.nonzero(m == np.round(m))[0].tolist())
+    roots: list[float] = [float(u[i]) for i in sorted(hits)]
+    lo = np.minimum(m[:-1], m[1:])
+    hi = np.maximum(m[:-1], m[1:])
+    idx = np.nonzero(np.floor(hi) >= np.ceil(lo))[0]
+    for i in idx:
+        a, b = float(m[i]), float(m[i + 1])
+        for k in range(math.ceil(min(a, b)), math.floor(max(a, b)) + 1):
+            if k in (a, b):
+                continue  # a grid point on the level: already recorded
+            level = -180.0 + 360.0 * k
+            ref = float(phase_deg[i])
+            roots.append(
+                _refine(
+                    lambda x, lv=level, r=ref: func(x, r) - lv,
+                    float(u[i]),
+                    float(u[i + 1]),
+                    float(phase_deg[i]) - level,
+                    float(phase_deg[i + 1]) - level,
+                )
+            )
+    return roots
+
+
+def _margins(
+    u: np.ndarray,
+    log_mag: Callable[[np.ndarray], np.ndarray],
+    phase_grid: np.ndarray,
+    phase_at: Callable[[float, float], float],
+    slope_at: Callable[[float], float],
+) -> LoopMargins:
+    """Crossovers and phase crossovers from a grid (log10 Hz) and the refiners."""
+    g = log_mag(u)
+
+    def mag_scalar(x: float) -> float:
+        return float(log_mag(np.array([x]))[0])
+
+    crossovers = []
+    for r in sorted(set(_mag_roots(u, g, mag_scalar))):
+        ref = float(np.interp(r, u, phase_grid))
+        pm = _wrap_pm(180.0 + phase_at(r, ref))
+        f = 10.0**r
+        crossovers.append(Crossover(f_hz=f, phase_margin_deg=pm, slope_db_per_decade=slope_at(f)))
+
+    gain_margins = []
+    for r in sorted(set(_phase_roots(u, phase_grid, phase_at))):
+        gm_db = -20.0 / math.log(10.0) * mag_scalar(r)
+        gain_margins.append(GainMargin(f_hz=10.0**r, gain_margin_db=gm_db))
+    return LoopMargins(tuple(crossovers), tuple(gain_margins))
+
+
+# --------------------------------------------------------------------------- public API
+
+
+def slope_db_per_decade(loop: LoopFunction, f_hz: float) -> float:
+    """Slope of ``20·log10|L|`` against ``log10 f`` at one frequency.
+
+    A central difference over ±1e-4 decade with one Richardson step
+    (truncation error of order ``h⁴``).
+
+    Parameters
+    ----------
+    loop : callable
+        ``loop(s)`` returns L at a complex array ``s`` in rad/s.
+    f_hz : float
+        Frequency in Hz, finite and > 0.
+
+    Returns
+    -------
+    float
+        Slope in dB/decade (-20 for an integrator).
+
+    Raises
+    ------
+    AnalysisError
+        For a bad frequency or a loop value that is zero or not finite.
+    """
+    if isinstance(f_hz, bool) or not isinstance(f_hz, Real):
+        raise AnalysisError(f"f_hz must be a frequency in Hz (got {f_hz!r})")
+    if not (math.isfinite(f_hz) and f_hz > 0):
+        raise AnalysisError(f"f_hz must be a finite frequency > 0 Hz (got {f_hz!r})")
+    return _slope_of_db(lambda f: 20.0 * np.log10(np.abs(_eval_loop(loop, f))), float(f_hz))
+
+
+def _slope_of_db(db_of_f_hz: Callable[[np.ndarray], np.ndarray], f_hz: float) -> float:
+    """Richardson-extrapolated central difference of a dB curve, dB/decade."""
+    h = _SLOPE_STEP_DECADES
+    steps = np.array([-h, h, -h / 2.0, h / 2.0])
+    db = db_of_f_hz(f_hz * 10.0**steps)
+    d_h = (db[1] - db[0]) / (2.0 * h)
+    d_h2 = (db[3] - db[2]) / h
+    return float((4.0 * d_h2 - d_h) / 3.0)
+
+
+def loop_margins(
+    loop: LoopFunction,
+    f_min_hz: float,
+    f_max_hz: float,
+    *,
+    points_per_decade: int = 200,
+) -> LoopMargins:
+    """Every gain crossover and phase crossover of a loop in a band.
+
+    Parameters
+    ----------
+    loop : callable
+        ``loop(s)`` returns the loop gain L (without the summing junction's
+        minus sign) at a complex array ``s`` in rad/s, same shape.
+    f_min_hz, f_max_hz : float
+        The band searched, Hz, ``0 < f_min_hz < f_max_hz``.
+    points_per_decade : int, optional
+        Density of the logarithmic search grid (points per decade of Hz).
+
+    Returns
+    -------
+    LoopMargins
+        Crossovers and phase crossovers sorted by frequency. The phase is
+        unwrapped along the grid; crossings are refined with
+        :func:`scipy.optimize.brentq` in log-frequency.
+
+    Raises
+    ------
+    AnalysisError
+        For a bad band or density, or a loop that is zero, not finite or of
+        the wrong shape on the grid.
+    """
+    if not callable(loop):
+        raise AnalysisError(f"loop must be callable as loop(s) with s in rad/s (got {loop!r})")
+    _check_band(f_min_hz, f_max_hz)
+    u = _log_grid(float(f_min_hz), float(f_max_hz), points_per_decade)
+    values = _eval_loop(loop, 10.0**u)
+    phase_grid = np.degrees(np.unwrap(np.angle(values)))
+
+    def log_mag(x: np.ndarray) -> np.ndarray:
+        return np.log(np.abs(_eval_loop(loop, 10.0**x)))
+
+    def phase_at(x: float, ref_deg: float) -> float:
+        a = float(np.degrees(np.angle(_eval_loop(loop, np.array([10.0**x]))[0])))
+        return ref_deg + float(_wrap180(a - ref_deg))
+
+    def slope_at(f: float) -> float:
+        return slope_db_per_decade(loop, f)
+
+    return _margins(u, log_mag, phase_grid, phase_at, slope_at)
+
+
+def _auto_band_hz(fn: FactoredNumeric) -> tuple[float, float]:
+    """Two decades beyond the extreme corners and asymptotic 0 dB crossings (Hz)."""
+    breaks = sorted(_magnitude_breaks(fn))
+    a0 = 20.0 * math.log10(abs(fn.gain))
+    slope = 20.0 * fn.origin_order
+    # Asymptote A(u) = a0 + slope·u + Σ d·max(0, u - u_b), u = log10(ω rad/s).
+    candidates = [b for b, _ in breaks]
+    edges = [-math.inf] + [b for b, _ in breaks] + [math.inf]
+    intercept = a0
+    for j in range(len(edges) - 1):
+        lo, hi = edges[j], edges[j + 1]
+        if slope != 0.0:
+            root = -intercept / slope
+            if lo <= root <= hi:
+                candidates.append(root)
+        if j < len(breaks):
+            d = breaks[j][1]
+            # After the break: A = intercept + slope·u + d·(u - b)
+            intercept -= d * breaks[j][0]
+            slope += d
+    if not candidates:
+        raise AnalysisError(
+            f"a loop with no corners and origin order {fn.origin_order!r} has no frequency scale; "
+            "give f_min_hz and f_max_hz"
+        )
+    u_lo = min(candidates) - _LOG10_2PI - 2.0
+    u_hi = max(candidates) - _LOG10_2PI + 2.0
+    return 10.0**u_lo, 10.0**u_hi
+
+
+def _resonance_points(fn: FactoredNumeric, u0: float, u1: float) -> np.ndarray:
+    """Extra grid points (log10 Hz) around each second-order factor, spaced by its Q."""
+    extra = []
+    offsets = np.linspace(-10.0, 10.0, 201)
+    for f in fn.factors:
+        if f.order == 2 and f.q is not None and f.q > 0.5:
+            width = 1.0 / (f.q * math.log(10.0))  # ≈ the -3 dB bandwidth ω0/Q, in decades
+            extra.append(math.log10(f.f_hz) + offsets * width)
+    if not extra:
+        return np.empty(0)
+    pts = np.concatenate(extra)
+    return pts[(pts > u0) & (pts < u1)]
+
+
+def loop_margins_factored(
+    fn: FactoredNumeric,
+    f_min_hz: float | None = None,
+    f_max_hz: float | None = None,
+    *,
+    points_per_decade: int = 200,
+) -> LoopMargins:
+    """Every gain crossover and phase crossover of a loop in factored form.
+
+    Parameters
+    ----------
+    fn : FactoredNumeric
+        The loop gain L (corners in rad/s), without the summing junction's
+        minus sign.
+    f_min_hz, f_max_hz : float or None, optional
+        The band searched, Hz. A bound left as None is taken two decades
+        beyond the extreme corner or the extreme 0 dB crossing of the
+        straight-line magnitude, whichever is further out.
+    points_per_decade : int, optional
+        Density of the logarithmic search grid; points are added around each
+        second-order factor in proportion to its Q.
+
+    Returns
+    -------
+    LoopMargins
+        Crossovers and phase crossovers sorted by frequency. Magnitude and
+        phase are evaluated analytically factor by factor (the phase is
+        continuous, see :func:`loopcraft.asymptote.exact_phase_deg`).
+
+    Raises
+    ------
+    AnalysisError
+        For a zero or non-finite gain, a bad band, or a loop with no corners
+        and no origin term when the band is not given.
+    """
+    _check_fn(fn)
+    if f_min_hz is None or f_max_hz is None:
+        auto_lo, auto_hi = _auto_band_hz(fn)
+        f_min_hz = auto_lo if f_min_hz is None else f_min_hz
+        f_max_hz = auto_hi if f_max_hz is None else f_max_hz
+    _check_band(f_min_hz, f_max_hz)
+    u = _log_grid(float(f_min_hz), float(f_max_hz), points_per_decade)
+    u = np.unique(np.concatenate([u, _resonance_points(fn, u[0], u[-1])]))
+
+    ln10_over_20 = math.log(10.0) / 20.0
+
+    def log_mag(x: np.ndarray) -> np.ndarray:
+        return exact_mag_db(fn, 10.0**x) * ln10_over_20
+
+    def phase_at(x: float, ref_deg: float) -> float:
+        return float(exact_phase_deg(fn, np.array([10.0**x]))[0])
+
+    def slope_at(f: float) -> float:
+        return _slope_of_db(lambda x: exact_mag_db(fn, x), f)
+
+    return _margins(u, log_mag, exact_phase_deg(fn, 10.0**u), phase_at, slope_at)
