@@ -16,6 +16,7 @@ first change of the line's ``d`` attribute (see ``tests/browser/lab.py``).
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 import tempfile
 import time
@@ -176,10 +177,20 @@ def main(argv: list[str] | None = None) -> int:
         with lab_session(root) as (server, page):
             t_server = time.perf_counter() - t0
             probe = measure_notebook(
-                nb.relative_to(root), root, PROBE_FIGURE_CLASS, PROBE_SLIDER_CLASS,
-                args.moves, warmup=args.warmup, server=server, page=page,
+                nb.relative_to(root),
+                root,
+                PROBE_FIGURE_CLASS,
+                PROBE_SLIDER_CLASS,
+                args.moves,
+                warmup=args.warmup,
+                server=server,
+                page=page,
             )
-    print(f"server start: {t_server:.1f} s")
+    load_1m, load_5m, _ = os.getloadavg()
+    print(
+        f"server start: {t_server:.1f} s; load average {load_1m:.2f} (1 min), "
+        f"{load_5m:.2f} (5 min) on {os.cpu_count()} CPUs"
+    )
     print(
         f"probe (1 line, 1 log slider): median {probe['median_ms']:.1f} ms, "
         f"p95 {probe['p95_ms']:.1f} ms, n={probe['n']}"

@@ -385,6 +385,24 @@ def test_best_combination_other_hand_cases() -> None:
     assert p.value == pytest.approx(15 * 4.7 / 19.7 * 1e-9, rel=1e-12)
 
 
+def test_best_combination_trim_part() -> None:
+    # Hand: 10.05k in E24; single 10k is -0.50 %, 10k + 51 Ω = 10.051k is +0.01 %.
+    c = best_combination(10.05e3, "E24")
+    assert (c.arrangement, c.parts) == ("series", (10e3, 51.0))
+    assert c.error_rel == pytest.approx(1 / 10050, rel=1e-9)
+
+
+def test_range_limits() -> None:
+    # Documented range [1e-300, 1e300]; the ends still work.
+    assert nearest(1e-300, "E12") == 1e-300
+    assert nearest(1e300, "E12") == 1e300
+    assert best_combination(1e-300, "E3", allow=("series",)).parts == (4.7e-301, 4.7e-301)
+    assert best_combination(1e300, "E3", allow=("parallel",)).parts == (2.2e300, 2.2e300)
+    for bad in (1e-301, 1e301):
+        with pytest.raises(ComponentValueError, match="range"):
+            nearest(bad, "E12")
+
+
 def test_best_combination_validation() -> None:
     with pytest.raises(ComponentValueError, match="allow"):
         best_combination(14e3, "E12", allow=())

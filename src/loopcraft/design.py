@@ -260,6 +260,12 @@ class Design:
         """The normalized factored form with each corner's formula and value."""
         return FactoredForm(self.derivation, self.transfer())
 
+    def sensitivity(self):
+        """Normalized sensitivities ∂ln(corner)/∂ln(component); see :mod:`loopcraft.sensitivity`."""
+        from .sensitivity import sensitivity
+
+        return sensitivity(self)
+
 
 def _wrap(build, key_path: str):
     try:

@@ -490,6 +490,12 @@ def best_combination(
     conductance.  The cost is ``O(n log n)`` for a series of ``n`` values per
     decade.
 
+    The ratio between the two parts is not limited: for a target just off a
+    standard value the best pair may be that value plus a much smaller trim part
+    (10.05 kΩ in E24 -> 10 kΩ + 51 Ω), or in parallel with a much larger one.
+    Whether such a gain matters against the parts' tolerance is the caller's
+    call; compare ``error_rel`` with that of ``allow=("single",)``.
+
     Parameters
     ----------
     target : float

@@ -231,8 +231,21 @@ def _refine(func: Callable[[float], float], ua: float, ub: float, ga: float, gb:
     return float(brentq(h, ua, ub, xtol=_XTOL_DECADES))
 
 
+def _reject_plateau(u: np.ndarray, on_level: np.ndarray, what: str) -> None:
+    """Raise when two neighbouring grid points lie exactly on a crossing level."""
+    both = np.nonzero(on_level[:-1] & on_level[1:])[0]
+    if both.size:
+        i = int(both[0])
+        raise AnalysisError(
+            f"{what} holds exactly from f_hz={10.0 ** u[i]!r} to f_hz={10.0 ** u[i + 1]!r}: "
+            "every frequency there is a crossing, so the margin is undefined; "
+            "expected isolated crossings"
+        )
+
+
 def _mag_roots(u: np.ndarray, g: np.ndarray, func: Callable[[float], float]) -> list[float]:
     """All roots (log10 Hz) of a function sampled as ``g`` on ``u``."""
+    _reject_plateau(u, g == 0.0, "|L| = 1")
     roots: list[float] = [float(x) for x in u[g == 0.0]]
     idx = np.nonzero(g[:-1] * g[1:] < 0.0)[0]
     for i in idx:
@@ -248,7 +261,9 @@ def _phase_roots(
     ``func(u, ref_deg)`` returns the phase at ``u`` on the branch nearest ``ref_deg``.
     """
     m = (phase_deg + 180.0) / 360.0  # crossings at integer m
-    hits: set[int] = set(np.nonzero(m == np.round(m))[0].tolist())
+    on_level = m == np.round(m)
+    _reject_plateau(u, on_level, "∠L = -180° (mod 360°)")
+    hits: set[int] = set(np.nonzero(on_level)[0].tolist())
     roots: list[float] = [float(u[i]) for i in sorted(hits)]
     lo = np.minimum(m[:-1], m[1:])
     hi = np.maximum(m[:-1], m[1:])
@@ -256,19 +271,22 @@ def _phase_roots(
     for i in idx:
         a, b = float(m[i]), float(m[i + 1])
         for k in range(math.ceil(min(a, b)), math.floor(max(a, b)) + 1):
-            if k in (a, b):
-                continue  # a grid point on the level: already recorded
             level = -180.0 + 360.0 * k
-            ref = float(phase_deg[i])
-            roots.append(
-                _refine(
-                    lambda x, lv=level, r=ref: func(x, r) - lv,
-                    float(u[i]),
-                    float(u[i + 1]),
-                    float(phase_deg[i]) - level,
-                    float(phase_deg[i + 1]) - level,
+            da = float(phase_deg[i]) - level
+            db = float(phase_deg[i + 1]) - level
+            if da == 0.0 or db == 0.0:
+                roots.append(float(u[i] if da == 0.0 else u[i + 1]))  # on a grid point
+            elif da * db < 0.0:
+                ref = float(phase_deg[i])
+                roots.append(
+                    _refine(
+                        lambda x, lv=level, r=ref: func(x, r) - lv,
+                        float(u[i]),
+                        float(u[i + 1]),
+                        da,
+                        db,
+                    )
                 )
-            )
     return roots
 
 
@@ -371,8 +389,10 @@ def loop_margins(
     Raises
     ------
     AnalysisError
-        For a bad band or density, or a loop that is zero, not finite or of
-        the wrong shape on the grid.
+        For a bad band or density, a loop that is zero, not finite or of the
+        wrong shape on the grid, or a loop whose magnitude is exactly 1 or
+        whose phase is exactly -180° over an interval (e.g. a pure double
+        integrator), where the margins are undefined.
     """
     if not callable(loop):
         raise AnalysisError(f"loop must be callable as loop(s) with s in rad/s (got {loop!r})")
@@ -470,8 +490,9 @@ def loop_margins_factored(
     Raises
     ------
     AnalysisError
-        For a zero or non-finite gain, a bad band, or a loop with no corners
-        and no origin term when the band is not given.
+        For a zero or non-finite gain, a bad band, a loop with no corners
+        and no origin term when the band is not given, or a phase that is
+        exactly -180° over an interval (a pure double integrator K/s²).
     """
     _check_fn(fn)
     if f_min_hz is None or f_max_hz is None:

@@ -126,7 +126,9 @@ class OpAmp:
             if self.a0 != math.inf:
                 raise _FieldError(f"an ideal op-amp has a0 = inf (got {self.a0!r})", "a0")
             if self.gbw_hz != math.inf:
-                raise _FieldError(f"an ideal op-amp has gbw_hz = inf (got {self.gbw_hz!r})", "gbw_hz")
+                raise _FieldError(
+                    f"an ideal op-amp has gbw_hz = inf (got {self.gbw_hz!r})", "gbw_hz"
+                )
             if self.second_pole_hz is not None:
                 raise _FieldError(
                     f"an ideal op-amp has no second pole (got second_pole_hz={self.second_pole_hz!r})",
@@ -136,7 +138,9 @@ class OpAmp:
             if not (math.isfinite(self.a0) and self.a0 > 1.0):
                 raise _FieldError(f"a0 must be a finite gain > 1 V/V (got {self.a0!r})", "a0")
             if not _finite_positive(self.gbw_hz):
-                raise _FieldError(f"gbw_hz must be finite and > 0 Hz (got {self.gbw_hz!r})", "gbw_hz")
+                raise _FieldError(
+                    f"gbw_hz must be finite and > 0 Hz (got {self.gbw_hz!r})", "gbw_hz"
+                )
             if self.model == "single_pole":
                 if self.second_pole_hz is not None:
                     raise _FieldError(
@@ -199,7 +203,9 @@ class OpAmp:
             out-of-range values; ``key_path`` names the offending key.
         """
         if not isinstance(d, Mapping):
-            raise DesignFileError(f"expected a mapping of op-amp parameters, got {type(d).__name__} {d!r}", key_path)
+            raise DesignFileError(
+                f"expected a mapping of op-amp parameters, got {type(d).__name__} {d!r}", key_path
+            )
         for k in d:
             if k not in _KEYS:
                 raise DesignFileError(
@@ -247,13 +253,17 @@ class OpAmp:
         elif "a0_db" in d:
             a0_db = num("a0_db")
             if not (math.isfinite(a0_db) and a0_db > 0):
-                raise DesignFileError(f"a0_db must be finite and > 0 dB (got {d['a0_db']!r})", f"{key_path}.a0_db")
+                raise DesignFileError(
+                    f"a0_db must be finite and > 0 dB (got {d['a0_db']!r})", f"{key_path}.a0_db"
+                )
             kwargs["a0"] = 10.0 ** (a0_db / 20.0)
             source["a0"] = "a0_db"
         else:
             raise DesignFileError(f"model {model!r} needs 'a0' (V/V) or 'a0_db' (dB)", key_path)
         if "gbw_hz" not in d:
-            raise DesignFileError(f"model {model!r} needs 'gbw_hz' (gain-bandwidth product A0·fa, Hz)", key_path)
+            raise DesignFileError(
+                f"model {model!r} needs 'gbw_hz' (gain-bandwidth product A0·fa, Hz)", key_path
+            )
         kwargs["gbw_hz"] = num("gbw_hz")
         source["gbw_hz"] = "gbw_hz"
 
@@ -283,13 +293,16 @@ class OpAmp:
             # Check a0 and gbw first so their errors name their own keys.
             _build({**kwargs, "model": "single_pole"}, source, key_path)
             try:
-                kwargs["second_pole_hz"] = second_pole_for_phase_margin(kwargs["a0"], kwargs["gbw_hz"], pm)
+                kwargs["second_pole_hz"] = second_pole_for_phase_margin(
+                    kwargs["a0"], kwargs["gbw_hz"], pm
+                )
             except AnalysisError as exc:
                 raise DesignFileError(str(exc), f"{key_path}.phase_margin_deg") from exc
             source["second_pole_hz"] = "phase_margin_deg"
         else:
             raise DesignFileError(
-                "model 'two_pole' needs 'second_pole_hz' (Hz) or 'phase_margin_deg' (degrees)", key_path
+                "model 'two_pole' needs 'second_pole_hz' (Hz) or 'phase_margin_deg' (degrees)",
+                key_path,
             )
         return _build(kwargs, source, key_path)
 

@@ -75,7 +75,12 @@ def _nonnegative(name: str, x: float, unit: str) -> None:
 
 
 def _duty(name: str, x: float) -> None:
-    if not (isinstance(x, int | float) and not isinstance(x, bool) and math.isfinite(x) and 0.0 < x < 1.0):
+    if not (
+        isinstance(x, int | float)
+        and not isinstance(x, bool)
+        and math.isfinite(x)
+        and 0.0 < x < 1.0
+    ):
         raise _FieldError(f"{name} must be a duty cycle strictly between 0 and 1 (got {x!r})", name)
 
 
@@ -132,7 +137,9 @@ def _factor_lines(fn: FactoredNumeric) -> list[str]:
         if f.order == 1:
             lines.append(f"  {side} real {f.role} at {format_value(f.f_hz, 'Hz')}")
         else:
-            lines.append(f"  {side} {f.role} pair at f0 = {format_value(f.f_hz, 'Hz')}, Q = {f.q:.4g}")
+            lines.append(
+                f"  {side} {f.role} pair at f0 = {format_value(f.f_hz, 'Hz')}, Q = {f.q:.4g}"
+            )
     return lines
 
 
@@ -196,7 +203,14 @@ class GeneralPlant(Plant):
     pole_pairs: tuple[ResonantPair, ...] = ()
 
     def __post_init__(self) -> None:
-        for name in ("zeros_hz", "poles_hz", "rhp_zeros_hz", "rhp_poles_hz", "zero_pairs", "pole_pairs"):
+        for name in (
+            "zeros_hz",
+            "poles_hz",
+            "rhp_zeros_hz",
+            "rhp_poles_hz",
+            "zero_pairs",
+            "pole_pairs",
+        ):
             if isinstance(getattr(self, name), list):
                 object.__setattr__(self, name, tuple(getattr(self, name)))
             if not isinstance(getattr(self, name), tuple):
@@ -205,7 +219,9 @@ class GeneralPlant(Plant):
         if isinstance(g, bool) or not isinstance(g, int | float) or not math.isfinite(g) or g == 0:
             raise _FieldError(f"gain must be finite and non-zero (got {g!r})", "gain")
         if isinstance(self.origin_order, bool) or not isinstance(self.origin_order, int):
-            raise _FieldError(f"origin_order must be an integer (got {self.origin_order!r})", "origin_order")
+            raise _FieldError(
+                f"origin_order must be an integer (got {self.origin_order!r})", "origin_order"
+            )
         for name in ("zeros_hz", "poles_hz", "rhp_zeros_hz", "rhp_poles_hz"):
             for i, f in enumerate(getattr(self, name)):
                 try:
@@ -215,14 +231,19 @@ class GeneralPlant(Plant):
         for name in ("zero_pairs", "pole_pairs"):
             for i, pair in enumerate(getattr(self, name)):
                 if not isinstance(pair, ResonantPair):
-                    raise _FieldError(f"{name}[{i}] must be a ResonantPair (got {pair!r})", f"{name}[{i}]")
+                    raise _FieldError(
+                        f"{name}[{i}] must be a ResonantPair (got {pair!r})", f"{name}[{i}]"
+                    )
                 try:
                     _positive("f0_hz", pair.f0_hz, "Hz")
                     _positive("q", pair.q, "")
                 except _FieldError as exc:
                     raise _FieldError(f"{name}[{i}].{exc}", f"{name}[{i}].{exc.field}") from None
                 if not isinstance(pair.rhp, bool):
-                    raise _FieldError(f"{name}[{i}].rhp must be true or false (got {pair.rhp!r})", f"{name}[{i}].rhp")
+                    raise _FieldError(
+                        f"{name}[{i}].rhp must be true or false (got {pair.rhp!r})",
+                        f"{name}[{i}].rhp",
+                    )
 
     def factored(self) -> FactoredNumeric:
         """Transfer function in normalized factored form (corners in rad/s)."""
@@ -238,7 +259,13 @@ class GeneralPlant(Plant):
 
     def describe(self) -> str:
         """The factored form and its numbers, as plain text."""
-        return "\n".join(["General plant, given as gain and roots:", _FACTORED_FORM, *_factor_lines(self.factored())])
+        return "\n".join(
+            [
+                "General plant, given as gain and roots:",
+                _FACTORED_FORM,
+                *_factor_lines(self.factored()),
+            ]
+        )
 
     def to_dict(self) -> dict[str, Any]:
         """Design-file mapping (frequencies in Hz)."""
@@ -278,9 +305,15 @@ def _scaled_roots(c: list[float]) -> np.ndarray:
         return np.zeros(0, dtype=complex)
     log_sigma = (math.log(abs(c[-1])) - math.log(abs(c[0]))) / n
     # c[i] multiplies s^(n-i) = σ^(n-i) x^(n-i).
-    logs = [math.log(abs(ci)) + (n - i) * log_sigma if ci != 0.0 else -math.inf for i, ci in enumerate(c)]
+    logs = [
+        math.log(abs(ci)) + (n - i) * log_sigma if ci != 0.0 else -math.inf
+        for i, ci in enumerate(c)
+    ]
     top = max(logs)
-    scaled = [math.copysign(math.exp(lg - top), ci) if ci != 0.0 else 0.0 for lg, ci in zip(logs, c, strict=True)]
+    scaled = [
+        math.copysign(math.exp(lg - top), ci) if ci != 0.0 else 0.0
+        for lg, ci in zip(logs, c, strict=True)
+    ]
     return np.roots(np.array(scaled, dtype=float)).astype(complex) * math.exp(log_sigma)
 
 
@@ -311,10 +344,14 @@ class PolynomialPlant(Plant):
                 object.__setattr__(self, name, tuple(getattr(self, name)))
             coeffs = getattr(self, name)
             if not isinstance(coeffs, tuple) or not coeffs:
-                raise _FieldError(f"{name} must be a non-empty tuple of coefficients (got {coeffs!r})", name)
+                raise _FieldError(
+                    f"{name} must be a non-empty tuple of coefficients (got {coeffs!r})", name
+                )
             for i, c in enumerate(coeffs):
                 if isinstance(c, bool) or not isinstance(c, int | float) or not math.isfinite(c):
-                    raise _FieldError(f"{name}[{i}] must be a finite number (got {c!r})", f"{name}[{i}]")
+                    raise _FieldError(
+                        f"{name}[{i}] must be a finite number (got {c!r})", f"{name}[{i}]"
+                    )
             if all(c == 0 for c in coeffs):
                 raise _FieldError(f"{name} must have a non-zero coefficient (got {coeffs!r})", name)
 
@@ -463,7 +500,9 @@ class BuckVoltageMode(Plant):
             f"  Q = (R + DCR) / (w0 * (L + C*(R*ESR + R*DCR + ESR*DCR))) = {self.q:.4g}",
         ]
         if self.esr_ohm > 0:
-            lines.append(f"  fz = 1/(2 pi ESR C) = {format_value(1.0 / (_TWO_PI * self.esr_ohm * self.c_f), 'Hz')}")
+            lines.append(
+                f"  fz = 1/(2 pi ESR C) = {format_value(1.0 / (_TWO_PI * self.esr_ohm * self.c_f), 'Hz')}"
+            )
         else:
             lines.append("  no ESR zero (ESR = 0)")
         return "\n".join(lines)
@@ -539,8 +578,12 @@ class PeakCurrentBuck(Plant):
         _positive("c_f", self.c_f, "F")
         _positive("ri_ohm", self.ri_ohm, "V/A")
         _nonnegative("esr_ohm", self.esr_ohm, "Ω")
-        if not (isinstance(self.mc, int | float) and not isinstance(self.mc, bool) and math.isfinite(self.mc)
-                and self.mc >= 1.0):
+        if not (
+            isinstance(self.mc, int | float)
+            and not isinstance(self.mc, bool)
+            and math.isfinite(self.mc)
+            and self.mc >= 1.0
+        ):
             raise _FieldError(f"mc = 1 + Se/Sn must be finite and >= 1 (got {self.mc!r})", "mc")
         if self.f_sw_hz is None:
             if self.duty is not None:
@@ -557,7 +600,9 @@ class PeakCurrentBuck(Plant):
             return
         _positive("f_sw_hz", self.f_sw_hz, "Hz")
         if self.duty is None:
-            raise _FieldError("f_sw_hz needs duty (the duty cycle D) for the fs/2 double pole", "duty")
+            raise _FieldError(
+                "f_sw_hz needs duty (the duty cycle D) for the fs/2 double pole", "duty"
+            )
         _duty("duty", self.duty)
         if self.mc * (1.0 - self.duty) <= 0.5:
             raise _FieldError(
@@ -602,10 +647,14 @@ class PeakCurrentBuck(Plant):
             "(approximation: the current-loop correction Ts*(mc*D' - 0.5)/(L*C) is left out)",
         ]
         if self.esr_ohm > 0:
-            lines.append(f"  ESR zero 1/(2 pi ESR C) = {format_value(1.0 / (_TWO_PI * self.esr_ohm * self.c_f), 'Hz')}")
+            lines.append(
+                f"  ESR zero 1/(2 pi ESR C) = {format_value(1.0 / (_TWO_PI * self.esr_ohm * self.c_f), 'Hz')}"
+            )
         qp = self.sampling_q
         if qp is None:
-            lines.append("  Fh(s) = 1 (no f_sw_hz given: the fs/2 sampling double pole is left out)")
+            lines.append(
+                "  Fh(s) = 1 (no f_sw_hz given: the fs/2 sampling double pole is left out)"
+            )
         else:
             assert self.f_sw_hz is not None and self.duty is not None
             lines += [
@@ -746,7 +795,9 @@ class BoostVoltageMode(Plant):
             f"  Q = 1/(w0 * (L/(D'^2 * R) + ESR*C)) = {self.q:.4g}",
         ]
         if self.esr_ohm > 0:
-            lines.append(f"  fesr = 1/(2 pi ESR C) = {format_value(1.0 / (_TWO_PI * self.esr_ohm * self.c_f), 'Hz')}")
+            lines.append(
+                f"  fesr = 1/(2 pi ESR C) = {format_value(1.0 / (_TWO_PI * self.esr_ohm * self.c_f), 'Hz')}"
+            )
         else:
             lines.append("  no ESR zero (ESR = 0)")
         return "\n".join(lines)
@@ -767,7 +818,8 @@ class BoostVoltageMode(Plant):
 
 # --------------------------------------------------------------------------- design-file reading
 _PLANT_CLASSES: dict[str, type[Plant]] = {
-    cls.kind: cls for cls in (GeneralPlant, PolynomialPlant, BuckVoltageMode, PeakCurrentBuck, BoostVoltageMode)
+    cls.kind: cls
+    for cls in (GeneralPlant, PolynomialPlant, BuckVoltageMode, PeakCurrentBuck, BoostVoltageMode)
 }
 
 #: The design-file ``kind`` values, in documentation order.
@@ -822,7 +874,9 @@ def _read_number(value: Any, where: str, name: str, unit: str, *, signed: bool =
     return x
 
 
-def _read_list(d: Mapping[str, Any], key: str, where: str, item: Callable[[Any, str], Any]) -> tuple[Any, ...]:
+def _read_list(
+    d: Mapping[str, Any], key: str, where: str, item: Callable[[Any, str], Any]
+) -> tuple[Any, ...]:
     value = d[key]
     if isinstance(value, str) or not isinstance(value, Sequence):
         raise DesignFileError(f"{key} must be a list (got {type(value).__name__} {value!r})", where)
@@ -833,11 +887,14 @@ def _check_keys(d: Mapping[str, Any], allowed: Sequence[str], key_path: str, wha
     for k in d:
         if k not in allowed:
             raise DesignFileError(
-                f"unknown key {k!r} for {what} (expected one of {', '.join(allowed)})", f"{key_path}.{k}"
+                f"unknown key {k!r} for {what} (expected one of {', '.join(allowed)})",
+                f"{key_path}.{k}",
             )
 
 
-def _construct(cls: type[Plant], kwargs: dict[str, Any], key_path: str, source: Mapping[str, str]) -> Plant:
+def _construct(
+    cls: type[Plant], kwargs: dict[str, Any], key_path: str, source: Mapping[str, str]
+) -> Plant:
     try:
         return cls(**kwargs)
     except _FieldError as exc:
@@ -849,7 +906,8 @@ def _construct(cls: type[Plant], kwargs: dict[str, Any], key_path: str, source: 
 def _read_pair(value: Any, where: str) -> ResonantPair:
     if not isinstance(value, Mapping):
         raise DesignFileError(
-            f"a root pair must be a mapping with keys f0_hz and q (got {type(value).__name__} {value!r})", where
+            f"a root pair must be a mapping with keys f0_hz and q (got {type(value).__name__} {value!r})",
+            where,
         )
     _check_keys(value, ("f0_hz", "q", "rhp"), where, "a root pair")
     for k in ("f0_hz", "q"):
@@ -866,8 +924,15 @@ def _read_pair(value: Any, where: str) -> ResonantPair:
 
 
 _GENERAL_KEYS = (
-    "kind", "gain", "origin_order", "zeros_hz", "poles_hz", "rhp_zeros_hz", "rhp_poles_hz",
-    "zero_pairs", "pole_pairs",
+    "kind",
+    "gain",
+    "origin_order",
+    "zeros_hz",
+    "poles_hz",
+    "rhp_zeros_hz",
+    "rhp_poles_hz",
+    "zero_pairs",
+    "pole_pairs",
 )
 
 
@@ -875,7 +940,9 @@ def _general_from_dict(d: Mapping[str, Any], key_path: str) -> Plant:
     _check_keys(d, _GENERAL_KEYS, key_path, "kind 'general'")
     if "gain" not in d:
         raise DesignFileError("missing key 'gain' (K of the normalized factored form)", key_path)
-    kwargs: dict[str, Any] = {"gain": _read_number(d["gain"], f"{key_path}.gain", "gain", "", signed=True)}
+    kwargs: dict[str, Any] = {
+        "gain": _read_number(d["gain"], f"{key_path}.gain", "gain", "", signed=True)
+    }
     if "origin_order" in d:
         n = d["origin_order"]
         if isinstance(n, bool) or not isinstance(n, int):
@@ -886,7 +953,9 @@ def _general_from_dict(d: Mapping[str, Any], key_path: str) -> Plant:
         kwargs["origin_order"] = n
     for key in ("zeros_hz", "poles_hz", "rhp_zeros_hz", "rhp_poles_hz"):
         if key in d:
-            kwargs[key] = _read_list(d, key, f"{key_path}.{key}", lambda v, w, k=key: _read_number(v, w, k, "Hz"))
+            kwargs[key] = _read_list(
+                d, key, f"{key_path}.{key}", lambda v, w, k=key: _read_number(v, w, k, "Hz")
+            )
     for key in ("zero_pairs", "pole_pairs"):
         if key in d:
             kwargs[key] = _read_list(d, key, f"{key_path}.{key}", _read_pair)
@@ -899,7 +968,8 @@ def _polynomial_from_dict(d: Mapping[str, Any], key_path: str) -> Plant:
     for key in ("num", "den"):
         if key not in d:
             raise DesignFileError(
-                f"missing key {key!r} (coefficients in descending powers of s, s in rad/s)", key_path
+                f"missing key {key!r} (coefficients in descending powers of s, s in rad/s)",
+                key_path,
             )
         kwargs[key] = _read_list(
             d, key, f"{key_path}.{key}", lambda v, w, k=key: _read_number(v, w, k, "", signed=True)
@@ -938,7 +1008,9 @@ def _circuit_from_dict(kind: str, d: Mapping[str, Any], key_path: str) -> Plant:
             )
         if has_vout:
             vout = kwargs.pop("vout_v")
-            _construct(BoostVoltageMode, {**kwargs, "duty": 0.5}, key_path, {})  # checks vin_v etc. first
+            _construct(
+                BoostVoltageMode, {**kwargs, "duty": 0.5}, key_path, {}
+            )  # checks vin_v etc. first
             if not (math.isfinite(vout) and vout > kwargs["vin_v"]):
                 raise DesignFileError(
                     f"vout_v must be above vin_v = {kwargs['vin_v']!r} V for a boost converter (got {d['vout_v']!r})",
@@ -985,13 +1057,18 @@ def plant_from_dict(d: Mapping[str, Any], key_path: str = "plant") -> Plant:
         keys, malformed or out-of-range values; ``key_path`` names the key.
     """
     if not isinstance(d, Mapping):
-        raise DesignFileError(f"expected a mapping describing the plant, got {type(d).__name__} {d!r}", key_path)
+        raise DesignFileError(
+            f"expected a mapping describing the plant, got {type(d).__name__} {d!r}", key_path
+        )
     if "kind" not in d:
-        raise DesignFileError(f"missing key 'kind' (expected one of {', '.join(PLANT_KINDS)})", key_path)
+        raise DesignFileError(
+            f"missing key 'kind' (expected one of {', '.join(PLANT_KINDS)})", key_path
+        )
     kind = d["kind"]
     if not isinstance(kind, str) or kind not in _PLANT_CLASSES:
         raise DesignFileError(
-            f"unknown plant kind {kind!r} (expected one of {', '.join(PLANT_KINDS)})", f"{key_path}.kind"
+            f"unknown plant kind {kind!r} (expected one of {', '.join(PLANT_KINDS)})",
+            f"{key_path}.kind",
         )
     if kind == "general":
         return _general_from_dict(d, key_path)

@@ -165,7 +165,7 @@ def _free_port() -> int:
 
 
 def _venv_python() -> Path:
-    """Return the project venv interpreter (falls back to the running one only if it is the venv)."""
+    """Return the project venv interpreter, else the running one if it is a venv."""
     repo = Path(__file__).resolve().parents[2]
     venv_py = repo / ".venv" / "bin" / "python"
     if venv_py.exists():
@@ -417,7 +417,9 @@ def _click_run_all(page: Page) -> None:
     page.get_by_role("menuitem", name=re.compile(r"^Run All Cells")).click()
 
 
-def open_and_run(page: Page, server: LabServer, rel_path: str | Path, *, timeout_s: float = 120) -> None:
+def open_and_run(
+    page: Page, server: LabServer, rel_path: str | Path, *, timeout_s: float = 120
+) -> None:
     """Open a notebook in JupyterLab, run all cells and wait for them to finish.
 
     Parameters
@@ -556,8 +558,9 @@ async ({figureClass, sliderClass, moves, timeoutMs, settleMs}) => {
         () => reject(new Error('no change of d within ' + timeoutMs + ' ms after ' + key)),
         timeoutMs);
     });
+    const ev = new KeyboardEvent('keydown', {key, code: key, bubbles: true, cancelable: true});
     const t0 = performance.now();
-    handle.dispatchEvent(new KeyboardEvent('keydown', {key, code: key, bubbles: true, cancelable: true}));
+    handle.dispatchEvent(ev);
     try { await changed; } finally { clearTimeout(timer); }
     latencies.push(t1 - t0);
     await sleep(settleMs);  // let the echo settle; count any further d changes

@@ -1,0 +1,85 @@
+import math
+
+import mpmath
+import pytest
+import sympy as sp
+
+from loopcraft import Design
+from loopcraft._symbols import S, component_symbol
+
+
+def inv(zi, zf, **values):
+    return Design.from_dict({"loopcraft": 1, "stage": {"kind": "inverting", "input": zi, "feedback": zf},
+                             "values": values})
+
+
+def test_type2_pole_and_zero_sensitivities():
+    # ωz = 1/(R2 C1): S_R2 = S_C1 = -1. ωp = (C1 + C2)/(R2 C1 C2): S_R2 = -1,
+    # S_C1 = -C2/(C1 + C2), S_C2 = -C1/(C1 + C2). Sensitivity of a product of powers is the
+    # exponent: Schaumann & Van Valkenburg, "Design of Analog Filters", 2001, ch. 3 (derivation).
+    c1, c2 = 6.8e-9, 150e-12
+    sens = inv("R1", "(R2 + C1) || C2", R1="10k", R2="22k", C1=c1, C2=c2).sensitivity()
+    rows = {r.label: r for r in sens.rows}
+    z = rows["ωz1"].by_component
+    assert z["R2"] == pytest.approx(-1) and z["C1"] == pytest.approx(-1) and z["R1"] == 0 and z["C2"] == 0
+    p = rows["ωp1"].by_component
+    assert p["R2"] == pytest.approx(-1)
+    assert p["C1"] == pytest.approx(-c2 / (c1 + c2), rel=1e-12)
+    assert p["C2"] == pytest.approx(-c1 / (c1 + c2), rel=1e-12)
+    assert rows["ωp1"].formulas["C1"] == "-C2/(C1 + C2)"
+    assert set(sens.moved_by("C2")) == {"ωp1"}
+
+
+def test_sallen_key_q_and_w0_sensitivities():
+    # Unity-gain Sallen-Key low-pass: ω0 = 1/sqrt(R1 R2 C1 C2) gives S = -1/2 for every part;
+    # Q = sqrt(R1 R2 C1 C2)/(C2 (R1 + R2)) gives S^Q_C1 = 1/2, S^Q_C2 = -1/2,
+    # S^Q_R1 = 1/2 - R1/(R1 + R2). Schaumann & Van Valkenburg 2001, ch. 4 (from memory).
+    d = Design.from_dict({
+        "loopcraft": 1,
+        "stage": {"kind": "circuit",
+                  "elements": [["R1", "in", "a"], ["R2", "a", "b"], ["C1", "a", "out"], ["C2", "b", "gnd"]],
+                  "opamps": [{"plus": "b", "minus": "out", "out": "out"}], "input": "in", "output": "out"},
+        "values": {"R1": "10k", "R2": "22k", "C1": "22n", "C2": "4.7n"},
+    })
+    rows = {r.label: r for r in d.sensitivity().rows}
+    w = rows["ω0p1"].by_component
+    assert all(v == pytest.approx(-0.5, rel=1e-12) for v in w.values())
+    q = rows["Qp1"].by_component
+    assert q["C1"] == pytest.approx(0.5) and q["C2"] == pytest.approx(-0.5)
+    assert q["R1"] == pytest.approx(0.5 - 10e3 / 32e3, rel=1e-12)
+    assert q["R2"] == pytest.approx(0.5 - 22e3 / 32e3, rel=1e-12)
+
+
+def test_numeric_factor_sensitivity_matches_mpmath():
+    # A cubic with no closed form: compare the central difference with a 40-digit mpmath one.
+    values = {"R1": 10.0, "C1": 1e-6, "R2": 10e6, "C2": 1e-12, "R3": 1e3, "C3": 10e-9, "L1": 1e-3}
+    d = inv("R1 + C1", "R2 || (C2 + (R3 || (C3 + L1)))", **values)
+    sens = d.sensitivity()
+    numeric = [r for r in sens.rows if r.formulas is None]
+    assert numeric
+    mpmath.mp.dps = 40
+    den = sp.Poly(sp.expand(d.derivation.denominator), S)
+
+    def roots_at(vals):
+        sub = {component_symbol(k): sp.Float(mpmath.nstr(mpmath.mpf(v), 40), 40) for k, v in vals.items()}
+        cs = [mpmath.mpf(str(sp.N(c.subs(sub), 40))) for c in den.all_coeffs()]
+        while cs[-1] == 0:
+            cs.pop()
+        return sorted((abs(r) for r in mpmath.polyroots(cs, maxsteps=400, extraprec=300)))
+
+    h = mpmath.mpf("1e-12")
+    for r in numeric:
+        if r.role != "pole":
+            continue
+        for name in ("R2", "L1"):
+            up = dict(values, **{name: mpmath.mpf(values[name]) * mpmath.exp(h)})
+            dn = dict(values, **{name: mpmath.mpf(values[name]) * mpmath.exp(-h)})
+            ru, rd, r0 = roots_at(up), roots_at(dn), roots_at(values)
+            k = min(range(len(r0)), key=lambda i: abs(r0[i] - r.value))
+            ref = float((mpmath.log(ru[k]) - mpmath.log(rd[k])) / (2 * h))
+            assert r.by_component[name] == pytest.approx(ref, abs=1e-7), (r.label, name)
+
+
+def test_integrator_constant_row_absent():
+    # A pure integrator has no corners, hence no sensitivity rows (common practice, no source).
+    assert inv("R1", "C1", R1="10k", C1="10n").sensitivity().rows == ()
