@@ -57,7 +57,8 @@ def test_integrator_and_pole(k, p):
         return k / (s * (1 + s / p))
 
     # From memory (|L| = 1 squared): wc^2 (1 + wc^2/p^2) = K^2, a quadratic in wc^2:
-    # wc^2 = (p^2/2)(sqrt(1 + 4K^2/p^2) - 1); PM = 90° - atan(wc/p) (Ogata 2010, §7-6 style).
+    # wc^2 = (p^2/2)(sqrt(1 + 4K^2/p^2) - 1); PM = 90° - atan(wc/p) (Ogata, "Modern Control
+    # Engineering", 5th ed., 2010, frequency-response chapter; derived again by hand).
     wc = math.sqrt(p * p / 2 * (math.sqrt(1 + 4 * k * k / (p * p)) - 1))
     pm = 90.0 - math.degrees(math.atan(wc / p))
     # Slope: d(20log10|L|)/d(log10 w) = -20 - 20 x^2/(1 + x^2), x = w/p (derived by hand).
@@ -93,8 +94,9 @@ def test_double_integrator_with_lead(k, z, p):
     roots = _positive_real_roots([1 / p**2, 1.0, -(k**2) / z**2, -(k**2)])
     assert len(roots) == 1
     wc = math.sqrt(roots[0])
-    # PM = 180° + (-180° + atan(w/z) - atan(w/p)) (Franklin, Powell & Emami-Naeini,
-    # "Feedback Control of Dynamic Systems", lead compensation of a double integrator).
+    # PM = 180° + (-180° + atan(w/z) - atan(w/p)), from the definition of the phase (the lead
+    # of a double integrator, as in Franklin, Powell & Emami-Naeini, "Feedback Control of
+    # Dynamic Systems"; derived by hand).
     pm = math.degrees(math.atan(wc / z) - math.atan(wc / p))
     fn = FactoredNumeric(k, -2, (Factor("zero", 1, z), Factor("pole", 1, p)))
     for res in (loop_margins(loop, 1e-3, 1e7), loop_margins_factored(fn)):

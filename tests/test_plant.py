@@ -4,11 +4,12 @@ from __future__ import annotations
 
 import math
 
+import mpmath
 import numpy as np
 import pytest
 from scipy import signal
 
-from loopcraft.errors import ComponentValueError, DesignFileError
+from loopcraft.errors import AnalysisError, ComponentValueError, DesignFileError
 from loopcraft.plant import (
     PLANT_KINDS,
     BoostVoltageMode,
@@ -305,6 +306,35 @@ def test_polynomial_matches_scipy(num: list[float], den: list[float]) -> None:
         for r in ref:
             dist = np.min(np.abs(ours - r))
             assert dist <= 1e-8 * max(abs(r), 1.0)
+
+
+@pytest.mark.parametrize(
+    "den",
+    [
+        [1.0, 1e6, 1.0],  # roots near -1e6 and -1e-6 rad/s
+        [1e-30, 3e-20, 2e-8, 1.0, 1e4],
+        list(np.poly([-TWO_PI * 0.1, -TWO_PI * 1e3, -TWO_PI * 5e8])),
+    ],
+)
+def test_polynomial_wide_root_spread_matches_mpmath(den: list[float]) -> None:
+    # Reference roots and response in 50-digit arithmetic with mpmath.polyroots / polyval.
+    plant = PolynomialPlant((1.0,), tuple(float(c) for c in den))
+    f = np.logspace(-3, 9, 61)
+    with mpmath.workdps(50):
+        coeffs = [mpmath.mpf(c) for c in den]
+        ref = [complex(r) for r in mpmath.polyroots(coeffs, maxsteps=500, extraprec=400)]
+        h_ref = np.array([complex(1 / mpmath.polyval(coeffs, 2j * mpmath.pi * fk)) for fk in f])
+    ours = plant.factored().pole_roots()
+    for rc in ref:
+        assert np.min(np.abs(ours - rc)) <= 1e-12 * abs(rc)
+    assert _rel_err(plant.response(f), h_ref) < 1e-12
+
+
+def test_polynomial_roots_too_spread_is_an_error() -> None:
+    # Roots 1e-20 and 1e20 rad/s cannot both be resolved in double precision next to the
+    # origin (common practice, no source): refuse rather than misplace a root.
+    with pytest.raises(AnalysisError):
+        PolynomialPlant((1.0,), (1.0, 1e20, 1.0)).factored()
 
 
 def test_polynomial_gain_is_normalized() -> None:

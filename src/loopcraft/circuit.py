@@ -53,10 +53,11 @@ found when solving and raise :class:`~loopcraft.errors.TopologyError`.
 
 from __future__ import annotations
 
+import random
 import re
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
-from functools import lru_cache
+from functools import cache, lru_cache
 from typing import Any
 
 import sympy as sp
@@ -652,15 +653,51 @@ def _sparse_det(
 # solver
 
 
-def _row_label(circuit: Circuit, node: str, ideal: bool) -> str:
-    for k, o in enumerate(circuit.opamps):
-        if o.out == node:
-            eq = "V+ = V-" if ideal else "Vout = A*(V+ - V-)"
-            return f"{_describe_opamp(k, o)} equation {eq}"
-    return f"KCL at node {node!r}"
+def _singular_error(
+    circuit: Circuit,
+    unknowns: list[str],
+    rows: list[dict[int, PolyElement]],
+    yring: PolyRing,
+    err: _Singular,
+    ideal: bool,
+) -> TopologyError:
+    """Explain a singular system: which equations, which node voltages."""
+    bad_rows, bad_cols = err.rows, err.cols
+    # Pin the dependency down at a random (generic) point of the symbols:
+    # the right null space names the free voltages, the left one the equations.
+    rng = random.Random(1729)
+    point = [rng.randint(2, 997) for _ in yring.gens]
+    n = len(unknowns)
+    full = sp.Matrix([[int(rows[r][c](*point)) if c in rows[r] else 0 for c in range(n)]
+                      for r in range(n)])
+    right = full.nullspace()
+    left = full.T.nullspace()
+    if right and left:
+        bad_cols = [c for c in range(n) if any(v[c] != 0 for v in right)]
+        bad_rows = [r for r in range(n) if any(v[r] != 0 for v in left)]
+    by_out = {o.out: k for k, o in enumerate(circuit.opamps)}
+    labels = []
+    culprit = None
+    for r in bad_rows:
+        node = unknowns[r]
+        if node in by_out:
+            k = by_out[node]
+            what = _describe_opamp(k, circuit.opamps[k])
+            culprit = culprit or what
+            labels.append(f"{what}: {'V+ = V-' if ideal else 'Vout = A*(V+ - V-)'}")
+        else:
+            labels.append(f"KCL at node {node!r}")
+    lead = f"{culprit} equations are singular" if culprit else "the circuit equations are singular"
+    nodes = [unknowns[c] for c in bad_cols]
+    model = "ideal" if ideal else "finite-gain"
+    return TopologyError(
+        f"{lead} ({model} op-amps): the voltages at nodes {nodes!r} are not determined; "
+        f"dependent equations: [{'; '.join(labels)}]; expected a circuit with a unique "
+        "solution (check for missing feedback or a network that balances out)"
+    )
 
 
-@lru_cache(maxsize=None)
+@cache
 def _y_symbols(count: int) -> tuple[sp.Dummy, ...]:
     """One admittance symbol per element (reused, so polynomial rings are reused)."""
     return tuple(sp.Dummy(f"y{e}") for e in range(count))
@@ -668,7 +705,7 @@ def _y_symbols(count: int) -> tuple[sp.Dummy, ...]:
 
 @lru_cache(maxsize=512)
 def _solve(circuit: Circuit, gain: sp.Expr | None) -> tuple[sp.Expr, sp.Expr]:
-    """Cached solve: ``(numerator, denominator)`` of ``Vout/Vin``."""
+    """Solve once per (circuit, gain): return ``(numerator, denominator)`` of ``Vout/Vin``."""
     elements = circuit.elements
     inp = circuit.input
     unknowns = [n for n in circuit.nodes if n != inp]
@@ -723,24 +760,10 @@ def _solve(circuit: Circuit, gain: sp.Expr | None) -> tuple[sp.Expr, sp.Expr]:
             elif node == inp:
                 add(rhs, r, -c)
 
-    ideal = gain is None
     try:
         sign_d, den_factors = _sparse_det(n, rows, yring)
     except _Singular as err:
-        labels = [_row_label(circuit, unknowns[r], ideal) for r in err.rows]
-        nodes = [unknowns[c] for c in err.cols]
-        model = "ideal" if ideal else "finite-gain"
-        culprits = [lb for lb in labels if lb.startswith("op-amp")]
-        lead = (
-            f"{culprits[0].split(' equation')[0]} equations are singular"
-            if culprits
-            else "the circuit equations are singular"
-        )
-        raise TopologyError(
-            f"{lead} ({model} op-amps): the voltages at nodes {nodes!r} are not determined "
-            f"by the equations [{'; '.join(labels)}]; expected a circuit with a unique "
-            "solution (check for missing feedback or a network that balances out)"
-        ) from None
+        raise _singular_error(circuit, unknowns, rows, yring, err, ideal=gain is None) from None
 
     k = index[circuit.output]
     rows_k = [dict(row) for row in rows]

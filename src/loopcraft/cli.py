@@ -49,7 +49,7 @@ def analyze_dict(design: Design) -> dict[str, Any]:
 def _extra_analysis(design: Design) -> dict[str, Any]:
     """Sections added by the loop analysis when an op-amp or plant is given."""
     try:
-        from .loop import analysis_sections
+        from .analysis import analysis_sections
     except ImportError:  # loop analysis not installed in this build
         return {}
     return analysis_sections(design)
@@ -63,7 +63,7 @@ def response_dict(design: Design, f_hz: Sequence[float]) -> dict[str, Any]:
     """The ``response --json`` document: magnitude (dB) and phase (degrees) per frequency (Hz)."""
     f = np.asarray(f_hz, dtype=float)
     try:
-        from .loop import response_columns
+        from .analysis import response_columns
     except ImportError:
         cols = _ideal_columns(design, f)
     else:

@@ -260,6 +260,63 @@ class Design:
         """The normalized factored form with each corner's formula and value."""
         return FactoredForm(self.derivation, self.transfer())
 
+    def analyze(self, f_hz=None):
+        """Everything at the current values: ideal, asymptotic, actual and loop curves.
+
+        Parameters
+        ----------
+        f_hz : array of float, optional
+            Frequency grid in Hz (500 log-spaced points around the corners by default).
+
+        Returns
+        -------
+        Analysis
+            See :class:`loopcraft.analysis.Analysis`.
+        """
+        from .analysis import Analyzer
+
+        return Analyzer(self, f_hz).update()
+
+    def asymptote_error(self, f_hz=None):
+        """Worst error of the straight-line Bode against the exact curve (dB, degrees, where)."""
+        from .asymptote import asymptote_error
+
+        a = self.analyze(f_hz)
+        return asymptote_error(a.factored, a.f_hz)
+
+    def actual(self):
+        """The stage with its real op-amp (:class:`loopcraft.amplifier.ActualStage`).
+
+        Raises
+        ------
+        AnalysisError
+            No op-amp, or an ideal one, is given.
+        """
+        from .amplifier import actual_stage
+        from .errors import AnalysisError
+
+        if self.opamp is None or self.opamp.is_ideal:
+            raise AnalysisError("this design has no real op-amp (add an 'opamp' section with a finite model)")
+        return actual_stage(self.stage, self.transfer(), self.opamp)
+
+    def amplifier_loop(self):
+        """The op-amp's own loop: crossover, phase margin, rate of closure, departure frequency."""
+        return self.actual().amplifier_loop
+
+    def loop(self):
+        """The loop around the plant (:class:`loopcraft.loop.PlantLoop`), with the real op-amp when given.
+
+        Raises
+        ------
+        AnalysisError
+            The design has no plant.
+        """
+        from .errors import AnalysisError
+
+        if self.plant is None:
+            raise AnalysisError("this design has no plant (add a 'plant' section)")
+        return self.analyze().loop
+
     def sensitivity(self):
         """Normalized sensitivities ∂ln(corner)/∂ln(component); see :mod:`loopcraft.sensitivity`."""
         from .sensitivity import sensitivity

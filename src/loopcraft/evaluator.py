@@ -19,7 +19,7 @@ from __future__ import annotations
 import cmath
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from functools import cached_property
 
 import numpy as np
@@ -28,7 +28,7 @@ import sympy as sp
 from ._symbols import element_kind
 from .derivation import Derivation, formula_text
 from .errors import AnalysisError, ComponentValueError
-from .factors import Factor, FactoredNumeric, factors_from_roots
+from .factors import Factor, FactoredNumeric, factors_from_roots, polynomial_roots
 from .values import parse_value
 
 __all__ = ["Evaluator", "TransferResult", "compile_derivation"]
@@ -110,16 +110,8 @@ def _quadratic_roots(a1: float, a2: float) -> tuple[complex, complex]:
 
 
 def _poly_roots(a: list[float]) -> np.ndarray:
-    """Roots of 1 + a1·s + … + ad·s^d, scaled and Newton-polished (d >= 3)."""
-    d = len(a) - 1
-    w = abs(a[d]) ** (-1.0 / d)  # geometric-mean root magnitude
-    b = np.array([a[k] * w**k for k in range(d + 1)])  # ascending, scaled
-    desc = b[::-1]
-    x = np.roots(desc)
-    der = np.polyder(desc)
-    for _ in range(3):
-        x = x - np.polyval(desc, x) / np.polyval(der, x)
-    return x * w
+    """Roots of 1 + a1·s + … + ad·s^d (ascending normalized coefficients), d >= 3."""
+    return polynomial_roots(a[::-1])
 
 
 class Evaluator:
@@ -192,16 +184,19 @@ class Evaluator:
                 r = -1.0 / a[0]
                 fs = [Factor(role, 1, abs(r), rhp=r > 0, formula=wf)]
                 roots = [complex(r)]
-            elif degree == 2 and a[1] > 0:
+            elif degree == 2 and a[1] > 0 and a[0] * a[0] < 4.0 * a[1]:
+                # Complex pair (Q > 0.5): one second-order factor with its ω0 and Q formulas.
                 w0 = 1.0 / math.sqrt(a[1])
                 q = 1.0 / (w0 * abs(a[0])) if a[0] != 0 else 1e15
                 fs = [Factor(role, 2, w0, q=q, rhp=a[0] < 0, formula=wf, q_formula=qf)]
                 roots = list(_quadratic_roots(a[0], a[1]))
             else:
-                # Two real roots of opposite sign, or a factor of degree >= 3: numeric only.
+                # Real roots of a quadratic (Q <= 0.5, or roots of opposite sign), or a factor
+                # of degree >= 3: first/second-order factors found numerically.
                 roots = list(_quadratic_roots(a[0], a[1])) if degree == 2 else list(_poly_roots([1.0, *a]))
-                fs = list(factors_from_roots(roots, [], 1.0).factors) if role == "zero" else list(
-                    factors_from_roots([], roots, 1.0).factors)
+                split = factors_from_roots(roots, [], 1.0) if role == "zero" else factors_from_roots([], roots, 1.0)
+                note = f"real root of 1 + s/(Q·ω0) + s²/ω0² with ω0 = {wf}, Q = {qf}" if degree == 2 and wf else None
+                fs = [replace(f, formula=note) for f in split.factors]
             for _ in range(mult):
                 factors.extend(fs)
                 (zeros if role == "zero" else poles).extend(roots)

@@ -23,7 +23,7 @@ import numpy as np
 
 from .errors import AnalysisError
 
-__all__ = ["Factor", "FactoredNumeric", "factors_from_roots"]
+__all__ = ["Factor", "FactoredNumeric", "factors_from_roots", "factored_from_tf", "polynomial_roots"]
 
 
 @dataclass(frozen=True)
@@ -170,6 +170,39 @@ class FactoredNumeric:
         """Complex frequency response at ``f_hz`` (Hz); evaluated at s = j·2π·f."""
         return self.evaluate(2j * np.pi * np.asarray(f_hz, dtype=float))
 
+    def tf(self) -> tuple[np.ndarray, np.ndarray]:
+        """(num, den) coefficients in descending powers of s (rad/s).
+
+        Built by multiplying the normalized factor polynomials, so no roots are
+        turned back into coefficients.
+        """
+        num = np.array([self.gain])
+        den = np.array([1.0])
+        for f in self.factors:
+            poly = np.array(f.coefficients[::-1])
+            if f.role == "zero":
+                num = np.polymul(num, poly)
+            else:
+                den = np.polymul(den, poly)
+        n = self.origin_order
+        if n > 0:
+            num = np.concatenate([num, np.zeros(n)])
+        elif n < 0:
+            den = np.concatenate([den, np.zeros(-n)])
+        return num, den
+
+    def inverse(self) -> FactoredNumeric:
+        """1/H: zeros and poles swap roles."""
+        swap = {"zero": "pole", "pole": "zero"}
+        fs = tuple(
+            Factor(swap[f.role], f.order, f.omega_rad_s, f.q, f.rhp, f.formula, f.q_formula) for f in self.factors
+        )
+        return FactoredNumeric(1.0 / self.gain, -self.origin_order, fs)
+
+    def scaled(self, k: float) -> FactoredNumeric:
+        """The same transfer function multiplied by the constant ``k``."""
+        return FactoredNumeric(self.gain * k, self.origin_order, self.factors, self.gain_formula)
+
     def __mul__(self, other: FactoredNumeric) -> FactoredNumeric:
         """Product of two transfer functions (factors concatenated, no cancellation)."""
         if not isinstance(other, FactoredNumeric):
@@ -237,3 +270,81 @@ def factors_from_roots(
     zf, nz = _real_factors_from_roots(zeros, "zero", rel_tol)
     pf, npl = _real_factors_from_roots(poles, "pole", rel_tol)
     return FactoredNumeric(float(gain), nz - npl, tuple(zf + pf))
+
+
+def polynomial_roots(c: Sequence[float]) -> np.ndarray:
+    """Roots (rad/s) of a polynomial with non-zero leading and constant terms.
+
+    Parameters
+    ----------
+    c : sequence of float
+        Coefficients in descending powers of s (s in rad/s).
+
+    Notes
+    -----
+    The variable is scaled, s = σ·x with σ = |c_n/c_0|^(1/n) (the geometric
+    mean of the root magnitudes), and the coefficients normalized before
+    ``numpy.roots``, so coefficients spanning many decades stay well
+    conditioned. All roots are then polished together by Newton steps on the
+    scaled polynomial, each step kept only where it reduces |p|; this restores
+    full relative accuracy to roots far below the largest one.
+    """
+    n = len(c) - 1
+    if n <= 0:
+        return np.zeros(0, dtype=complex)
+    log_sigma = (math.log(abs(c[-1])) - math.log(abs(c[0]))) / n
+    powers = np.arange(n, -1, -1) * log_sigma
+    arr = np.asarray(c, dtype=float)
+    with np.errstate(divide="ignore"):
+        logs = np.where(arr != 0.0, np.log(np.abs(arr), where=arr != 0.0, out=np.zeros(n + 1)) + powers, -np.inf)
+    coeffs = np.sign(arr) * np.exp(logs - logs.max())
+    x = np.roots(coeffs).astype(complex)
+    deriv = np.polyder(coeffs)
+    px = np.polyval(coeffs, x)
+    for _ in range(6):
+        dpx = np.polyval(deriv, x)
+        ok = dpx != 0
+        step = np.where(ok, px / np.where(ok, dpx, 1.0), 0.0)
+        x_new = x - step
+        p_new = np.polyval(coeffs, x_new)
+        better = np.abs(p_new) < np.abs(px)
+        if not better.any():
+            break
+        x = np.where(better, x_new, x)
+        px = np.where(better, p_new, px)
+    return x * math.exp(log_sigma)
+
+
+def factored_from_tf(num: Sequence[float], den: Sequence[float]) -> FactoredNumeric:
+    """Normalized factored form of num/den (descending powers of s, rad/s).
+
+    Leading zero coefficients are ignored; trailing zeros are roots at the
+    origin. K is the ratio of the lowest non-zero coefficients.
+
+    Raises
+    ------
+    AnalysisError
+        An all-zero polynomial, or roots spread so widely that a non-zero root
+        cannot be told from one at the origin.
+    """
+    parts = []
+    for coeffs in (num, den):
+        cs = [float(x) for x in coeffs]
+        while cs and cs[0] == 0.0:
+            cs.pop(0)
+        if not cs:
+            raise AnalysisError("a transfer-function polynomial is identically zero")
+        n_origin = 0
+        while cs[-1] == 0.0:
+            cs.pop()
+            n_origin += 1
+        parts.append((cs, n_origin, polynomial_roots(cs)))
+    (cn, zn, zr), (cd, zd, pr) = parts
+    gain = cn[-1] / cd[-1]
+    fn = factors_from_roots(zr, pr, gain)
+    if fn.origin_order != 0 or sum(f.order for f in fn.factors) != len(zr) + len(pr):
+        raise AnalysisError(
+            "polynomial roots span too many decades to separate from the origin "
+            f"(num={list(num)!r}, den={list(den)!r})"
+        )
+    return FactoredNumeric(gain, zn - zd, fn.factors)

@@ -624,7 +624,7 @@ def synthesize_section(
     """Choose component values for one filter section.
 
     Capacitor ratios follow from the target (for example C1/C2 = max(4Q², 1)
-    for the unity-gain Sallen-Key low-pass, which gives R1 = R2); the capacitor
+    for the unity-gain Sallen-Key low-pass, giving R1 = R2 for Q >= 0.5); the capacitor
     scale is ``c_value_f`` or, when None, the one that centres the resistors
     geometrically in ``r_range_ohm``.  Capacitors are then rounded to
     ``capacitor_series`` (a ratio that has a minimum is rounded up) and the

@@ -1,11 +1,11 @@
-"""Numeric op-amp models: ideal, single-pole and two-pole open-loop gain.
+r"""Numeric op-amp models: ideal, single-pole and two-pole open-loop gain.
 
 The open-loop gain of a non-ideal amplifier is
 
 .. math::
 
-    A(s) = \\frac{A_0}{(1 + s/\\omega_a)(1 + s/\\omega_2)}, \\qquad
-    \\omega_a = \\frac{2\\pi \\cdot \\mathrm{GBW}}{A_0}
+    A(s) = \frac{A_0}{(1 + s/\omega_a)(1 + s/\omega_2)}, \qquad
+    \omega_a = \frac{2\pi \cdot \mathrm{GBW}}{A_0}
 
 with s in rad/s. Conventions:
 
@@ -119,7 +119,8 @@ class OpAmp:
     def __post_init__(self) -> None:
         if self.model not in OPAMP_MODELS:
             raise _FieldError(
-                f"op-amp model {self.model!r} is not known (expected one of {', '.join(OPAMP_MODELS)})",
+                f"op-amp model {self.model!r} is not known "
+                f"(expected one of {', '.join(OPAMP_MODELS)})",
                 "model",
             )
         if self.model == "ideal":
@@ -131,7 +132,8 @@ class OpAmp:
                 )
             if self.second_pole_hz is not None:
                 raise _FieldError(
-                    f"an ideal op-amp has no second pole (got second_pole_hz={self.second_pole_hz!r})",
+                    "an ideal op-amp has no second pole "
+                    f"(got second_pole_hz={self.second_pole_hz!r})",
                     "second_pole_hz",
                 )
         else:
@@ -282,7 +284,8 @@ class OpAmp:
         if has_f2 and has_pm:
             raise DesignFileError(
                 "give second_pole_hz or phase_margin_deg, not both "
-                f"(got second_pole_hz={d['second_pole_hz']!r}, phase_margin_deg={d['phase_margin_deg']!r})",
+                f"(got second_pole_hz={d['second_pole_hz']!r}, "
+                f"phase_margin_deg={d['phase_margin_deg']!r})",
                 f"{key_path}.phase_margin_deg",
             )
         if has_f2:
@@ -433,7 +436,8 @@ class OpAmp:
         """
         if not (math.isfinite(output_amplitude_v) and output_amplitude_v >= 0):
             raise AnalysisError(
-                f"output_amplitude_v must be a finite peak amplitude >= 0 V (got {output_amplitude_v!r})"
+                "output_amplitude_v must be a finite peak amplitude >= 0 V "
+                f"(got {output_amplitude_v!r})"
             )
         if not (math.isfinite(f_hz) and f_hz >= 0):
             raise AnalysisError(f"f_hz must be finite and >= 0 Hz (got {f_hz!r})")
@@ -450,9 +454,11 @@ class OpAmp:
             if need_v_per_s > sr_v_per_s:
                 fpbw_hz = sr_v_per_s / (_TWO_PI * vpk)
                 out.append(
-                    f"slew-rate limited: a {format_value(vpk, 'V')} peak sine at {format_value(f_hz, 'Hz')} "
+                    f"slew-rate limited: a {format_value(vpk, 'V')} peak sine at "
+                    f"{format_value(f_hz, 'Hz')} "
                     f"needs 2π·f·Vpk = {need_v_per_s / 1e6:.4g} V/µs, above the slew rate "
-                    f"{self.slew_rate_v_per_us:.4g} V/µs; full-power bandwidth at this amplitude is "
+                    f"{self.slew_rate_v_per_us:.4g} V/µs; full-power bandwidth at this amplitude "
+                    "is "
                     f"SR/(2π·Vpk) = {format_value(fpbw_hz, 'Hz')}"
                 )
         return tuple(out)
@@ -556,7 +562,8 @@ def _read_number(value: Any, key: str, where: str) -> float:
     """Read a design-file number (a number, or text with an SI prefix and optional unit)."""
     if isinstance(value, bool) or not isinstance(value, int | float | str):
         raise DesignFileError(
-            f"{key} must be a number or engineering text such as '10M' (got {type(value).__name__} {value!r})",
+            f"{key} must be a number or engineering text such as '10M' "
+            f"(got {type(value).__name__} {value!r})",
             where,
         )
     if isinstance(value, int | float):

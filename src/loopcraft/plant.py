@@ -37,7 +37,7 @@ from typing import Any, ClassVar
 import numpy as np
 
 from .errors import AnalysisError, ComponentValueError, DesignFileError
-from .factors import Factor, FactoredNumeric, factors_from_roots
+from .factors import Factor, FactoredNumeric, factored_from_tf, factors_from_roots
 from .values import format_value, parse_value
 
 __all__ = [
@@ -84,6 +84,10 @@ def _duty(name: str, x: float) -> None:
         raise _FieldError(f"{name} must be a duty cycle strictly between 0 and 1 (got {x!r})", name)
 
 
+def _hz(f_hz: float) -> str:
+    return format_value(f_hz, "Hz")
+
+
 def _db(x: float) -> str:
     return f"{20.0 * math.log10(abs(x)):.4g} dB"
 
@@ -103,7 +107,7 @@ class Plant(ABC):
 
     @abstractmethod
     def describe(self) -> str:
-        """The formulas used and their numbers, as plain text."""
+        """Return the formulas used and their numbers, as plain text."""
 
     @abstractmethod
     def to_dict(self) -> dict[str, Any]:
@@ -258,7 +262,7 @@ class GeneralPlant(Plant):
         return FactoredNumeric(float(self.gain), self.origin_order, tuple(fs))
 
     def describe(self) -> str:
-        """The factored form and its numbers, as plain text."""
+        """Return the factored form and its numbers, as plain text."""
         return "\n".join(
             [
                 "General plant, given as gain and roots:",
@@ -285,38 +289,6 @@ class GeneralPlant(Plant):
 
 
 # --------------------------------------------------------------------------- polynomial
-def _strip_leading_zeros(c: Sequence[float]) -> list[float]:
-    out = list(c)
-    while out and out[0] == 0.0:
-        out.pop(0)
-    return out
-
-
-def _scaled_roots(c: list[float]) -> np.ndarray:
-    """Roots (rad/s) of a polynomial with non-zero leading and constant terms.
-
-    The variable is scaled, s = σ·x with σ = |c0/cn|^(1/n) (the geometric mean
-    of the root magnitudes), and the coefficients normalized before
-    ``numpy.roots``, so coefficients spanning many decades stay well
-    conditioned.
-    """
-    n = len(c) - 1
-    if n == 0:
-        return np.zeros(0, dtype=complex)
-    log_sigma = (math.log(abs(c[-1])) - math.log(abs(c[0]))) / n
-    # c[i] multiplies s^(n-i) = σ^(n-i) x^(n-i).
-    logs = [
-        math.log(abs(ci)) + (n - i) * log_sigma if ci != 0.0 else -math.inf
-        for i, ci in enumerate(c)
-    ]
-    top = max(logs)
-    scaled = [
-        math.copysign(math.exp(lg - top), ci) if ci != 0.0 else 0.0
-        for lg, ci in zip(logs, c, strict=True)
-    ]
-    return np.roots(np.array(scaled, dtype=float)).astype(complex) * math.exp(log_sigma)
-
-
 @dataclass(frozen=True)
 class PolynomialPlant(Plant):
     """A plant given as a ratio of polynomials in s (rad/s).
@@ -364,32 +336,20 @@ class PolynomialPlant(Plant):
             Roots spread over so many decades that a non-zero root cannot be
             told from one at the origin.
         """
-        parts = []
-        for coeffs in (self.num, self.den):
-            c = _strip_leading_zeros([float(x) for x in coeffs])
-            n_origin = 0
-            while c[-1] == 0.0:
-                c.pop()
-                n_origin += 1
-            parts.append((c, n_origin, _scaled_roots(c)))
-        (cn, zn, zr), (cd, zd, pr) = parts
-        gain = cn[-1] / cd[-1]
-        fn = factors_from_roots(zr, pr, gain)
-        if fn.origin_order != 0 or sum(f.order for f in fn.factors) != len(zr) + len(pr):
-            raise AnalysisError(
-                f"polynomial roots span too many decades to separate from the origin (num={self.num!r}, "
-                f"den={self.den!r}); factor the plant and use kind 'general'"
-            )
-        return FactoredNumeric(gain, zn - zd, fn.factors)
+        try:
+            return factored_from_tf(self.num, self.den)
+        except AnalysisError as err:
+            raise AnalysisError(f"{err}; factor the plant and use kind 'general'") from err
 
     def describe(self) -> str:
-        """The polynomials and the factored form derived from them, as plain text."""
+        """Return the polynomials and the factored form derived from them, as plain text."""
         return "\n".join(
             [
                 "Polynomial plant, s in rad/s, descending powers:",
                 f"  num = {list(self.num)!r}",
                 f"  den = {list(self.den)!r}",
-                "  factored with K = (lowest non-zero num coefficient)/(lowest non-zero den coefficient):",
+                "  factored with K = (lowest non-zero num coefficient)"
+                "/(lowest non-zero den coefficient):",
                 _FACTORED_FORM,
                 *_factor_lines(self.factored()),
             ]
@@ -485,7 +445,7 @@ class BuckVoltageMode(Plant):
         return FactoredNumeric(self.dc_gain, 0, tuple(fs))
 
     def describe(self) -> str:
-        """The formulas used and their numbers, as plain text."""
+        """Return the formulas used and their numbers, as plain text."""
         lines = [
             "Voltage-mode buck, CCM, control voltage to output voltage (averaged switch model):",
             "  Gvc(s) = (Vin/Vramp) * Zo/(Zo + s*L + DCR),  Zo = R || (ESR + 1/(s*C))",
@@ -501,7 +461,7 @@ class BuckVoltageMode(Plant):
         ]
         if self.esr_ohm > 0:
             lines.append(
-                f"  fz = 1/(2 pi ESR C) = {format_value(1.0 / (_TWO_PI * self.esr_ohm * self.c_f), 'Hz')}"
+                f"  fz = 1/(2 pi ESR C) = {_hz(1.0 / (_TWO_PI * self.esr_ohm * self.c_f))}"
             )
         else:
             lines.append("  no ESR zero (ESR = 0)")
@@ -588,13 +548,15 @@ class PeakCurrentBuck(Plant):
         if self.f_sw_hz is None:
             if self.duty is not None:
                 raise _FieldError(
-                    f"duty is used only with f_sw_hz (the fs/2 double pole); got duty={self.duty!r} "
+                    "duty is used only with f_sw_hz (the fs/2 double pole); "
+                    f"got duty={self.duty!r} "
                     "without f_sw_hz",
                     "duty",
                 )
             if self.mc != 1.0:
                 raise _FieldError(
-                    f"mc is used only with f_sw_hz (the fs/2 double pole); got mc={self.mc!r} without f_sw_hz",
+                    "mc is used only with f_sw_hz (the fs/2 double pole); "
+                    f"got mc={self.mc!r} without f_sw_hz",
                     "mc",
                 )
             return
@@ -606,8 +568,9 @@ class PeakCurrentBuck(Plant):
         _duty("duty", self.duty)
         if self.mc * (1.0 - self.duty) <= 0.5:
             raise _FieldError(
-                f"mc·(1 − D) = {self.mc!r}·(1 − {self.duty!r}) = {self.mc * (1.0 - self.duty):.4g} is not "
-                "above 0.5: the current loop oscillates at fs/2 (subharmonic); raise mc (more slope "
+                f"mc·(1 − D) = {self.mc!r}·(1 − {self.duty!r}) = {self.mc * (1.0 - self.duty):.4g} "
+                "is not above 0.5: the current loop oscillates at fs/2 (subharmonic); "
+                "raise mc (more slope "
                 "compensation)",
                 "mc",
             )
@@ -636,19 +599,21 @@ class PeakCurrentBuck(Plant):
         return FactoredNumeric(self.load_ohm / self.ri_ohm, 0, tuple(fs))
 
     def describe(self) -> str:
-        """The formulas used and their numbers, as plain text."""
+        """Return the formulas used and their numbers, as plain text."""
         lines = [
-            "Peak-current-mode buck, simplified control-to-output model (inductor as current source):",
+            "Peak-current-mode buck, simplified control-to-output model "
+            "(inductor as current source):",
             "  Gvc(s) = (R/Ri) * (1 + s*ESR*C) / (1 + s*(R + ESR)*C) * Fh(s)",
             f"  R = {format_value(self.load_ohm, 'Ω')}, C = {format_value(self.c_f, 'F')}, "
             f"ESR = {format_value(self.esr_ohm, 'Ω')}, Ri = {self.ri_ohm:.4g} V/A",
-            f"  DC gain R/Ri = {self.load_ohm / self.ri_ohm:.6g} V/V ({_db(self.load_ohm / self.ri_ohm)})",
+            f"  DC gain R/Ri = {self.load_ohm / self.ri_ohm:.6g} V/V "
+            f"({_db(self.load_ohm / self.ri_ohm)})",
             f"  dominant pole 1/(2 pi (R + ESR) C) = {format_value(self.dominant_pole_hz, 'Hz')} "
             "(approximation: the current-loop correction Ts*(mc*D' - 0.5)/(L*C) is left out)",
         ]
         if self.esr_ohm > 0:
             lines.append(
-                f"  ESR zero 1/(2 pi ESR C) = {format_value(1.0 / (_TWO_PI * self.esr_ohm * self.c_f), 'Hz')}"
+                f"  ESR zero 1/(2 pi ESR C) = {_hz(1.0 / (_TWO_PI * self.esr_ohm * self.c_f))}"
             )
         qp = self.sampling_q
         if qp is None:
@@ -659,7 +624,8 @@ class PeakCurrentBuck(Plant):
             assert self.f_sw_hz is not None and self.duty is not None
             lines += [
                 "  Fh(s) = 1/(1 + s/(Qp*wn) + s^2/wn^2), wn = pi*fs, Qp = 1/(pi*(mc*D' - 0.5))",
-                f"  fs = {format_value(self.f_sw_hz, 'Hz')}, D = {self.duty:.4g}, mc = {self.mc:.4g}: "
+                f"  fs = {format_value(self.f_sw_hz, 'Hz')}, D = {self.duty:.4g}, "
+                f"mc = {self.mc:.4g}: "
                 f"double pole at {format_value(self.f_sw_hz / 2.0, 'Hz')}, Qp = {qp:.4g}",
             ]
         return "\n".join(lines)
@@ -780,7 +746,7 @@ class BoostVoltageMode(Plant):
         return FactoredNumeric(self.dc_gain, 0, tuple(fs))
 
     def describe(self) -> str:
-        """The formulas used and their numbers, as plain text."""
+        """Return the formulas used and their numbers, as plain text."""
         lines = [
             "Voltage-mode boost, CCM, control voltage to output voltage (averaged switch model):",
             "  Gvc(s) = G0 * (1 + s/wesr) * (1 - s/wz) / (1 + s/(Q*w0) + s^2/w0^2)",
@@ -796,7 +762,7 @@ class BoostVoltageMode(Plant):
         ]
         if self.esr_ohm > 0:
             lines.append(
-                f"  fesr = 1/(2 pi ESR C) = {format_value(1.0 / (_TWO_PI * self.esr_ohm * self.c_f), 'Hz')}"
+                f"  fesr = 1/(2 pi ESR C) = {_hz(1.0 / (_TWO_PI * self.esr_ohm * self.c_f))}"
             )
         else:
             lines.append("  no ESR zero (ESR = 0)")
@@ -848,7 +814,8 @@ def _read_number(value: Any, where: str, name: str, unit: str, *, signed: bool =
     """Read a number or engineering text; ``unit`` is a key of ``_UNITS``."""
     if isinstance(value, bool) or not isinstance(value, int | float | str):
         raise DesignFileError(
-            f"{name} must be a number or engineering text such as '10k' (got {type(value).__name__} {value!r})",
+            f"{name} must be a number or engineering text such as '10k' "
+            f"(got {type(value).__name__} {value!r})",
             where,
         )
     if isinstance(value, int | float):
@@ -906,7 +873,8 @@ def _construct(
 def _read_pair(value: Any, where: str) -> ResonantPair:
     if not isinstance(value, Mapping):
         raise DesignFileError(
-            f"a root pair must be a mapping with keys f0_hz and q (got {type(value).__name__} {value!r})",
+            "a root pair must be a mapping with keys f0_hz and q "
+            f"(got {type(value).__name__} {value!r})",
             where,
         )
     _check_keys(value, ("f0_hz", "q", "rhp"), where, "a root pair")
@@ -1002,7 +970,8 @@ def _circuit_from_dict(kind: str, d: Mapping[str, Any], key_path: str) -> Plant:
         has_vout, has_duty = "vout_v" in kwargs, "duty" in kwargs
         if has_vout == has_duty:
             raise DesignFileError(
-                "kind 'boost_vm' needs exactly one of 'vout_v' (V) or 'duty' (D) for the operating point"
+                "kind 'boost_vm' needs exactly one of 'vout_v' (V) or 'duty' (D) "
+                "for the operating point"
                 + (f" (got vout_v={d['vout_v']!r} and duty={d['duty']!r})" if has_vout else ""),
                 f"{key_path}.vout_v" if has_vout else key_path,
             )
@@ -1013,7 +982,8 @@ def _circuit_from_dict(kind: str, d: Mapping[str, Any], key_path: str) -> Plant:
             )  # checks vin_v etc. first
             if not (math.isfinite(vout) and vout > kwargs["vin_v"]):
                 raise DesignFileError(
-                    f"vout_v must be above vin_v = {kwargs['vin_v']!r} V for a boost converter (got {d['vout_v']!r})",
+                    f"vout_v must be above vin_v = {kwargs['vin_v']!r} V for a boost converter "
+                    f"(got {d['vout_v']!r})",
                     f"{key_path}.vout_v",
                 )
             kwargs["duty"] = 1.0 - kwargs["vin_v"] / vout

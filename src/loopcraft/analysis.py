@@ -1,0 +1,190 @@
+"""Everything shown for one set of values, computed on the compiled fast path.
+
+:class:`Analyzer` holds what does not change while values move (the compiled
+evaluator, the op-amp and plant models, the frequency grid); each
+:meth:`Analyzer.update` returns an immutable :class:`Analysis` with the ideal,
+asymptotic, actual and loop curves, poles, zeros and margins. The widgets,
+the command line and the reports all read this one result.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass
+
+import numpy as np
+
+from .amplifier import ActualStage, actual_stage
+from .asymptote import asymptote_mag_db, asymptote_phase_deg, exact_mag_db, exact_phase_deg
+from .evaluator import TransferResult
+from .factors import FactoredNumeric
+from .loop import PlantLoop, plant_loop
+
+__all__ = ["Analysis", "Analyzer", "default_band_hz", "analysis_sections", "response_columns"]
+
+
+def default_band_hz(*fns: FactoredNumeric, extra_hz: tuple[float, ...] = ()) -> tuple[float, float]:
+    """A frequency band (Hz) two decades beyond the extreme corners of the given functions."""
+    fs = [f.f_hz for fn in fns for f in fn.factors] + [x for x in extra_hz if math.isfinite(x) and x > 0]
+    if not fs:
+        fs = [1e3]
+    lo = 10 ** (math.floor(math.log10(min(fs))) - 2)
+    hi = 10 ** (math.ceil(math.log10(max(fs))) + 2)
+    return max(lo, 1e-3), min(hi, 1e12)
+
+
+@dataclass(frozen=True)
+class Analysis:
+    """The data every view shows, at one set of component values.
+
+    Attributes
+    ----------
+    f_hz : ndarray
+        Frequency grid, Hz.
+    exact_mag_db, exact_phase_deg : ndarray
+        Ideal stage response (dB, continuous phase in degrees).
+    asymptote_mag_db, asymptote_phase_deg : ndarray
+        Straight-line approximations of the same.
+    zeros_rad_s, poles_rad_s : ndarray of complex
+        Ideal stage roots, rad/s (origin roots included).
+    transfer : TransferResult
+        The ideal numeric transfer function.
+    actual : ActualStage or None
+        The stage with the real op-amp (None for an ideal op-amp).
+    actual_mag_db, actual_phase_deg : ndarray or None
+    loop : PlantLoop or None
+        Loop gain around the plant (None without a plant).
+    loop_mag_db, loop_phase_deg : ndarray or None
+    """
+
+    f_hz: np.ndarray
+    exact_mag_db: np.ndarray
+    exact_phase_deg: np.ndarray
+    asymptote_mag_db: np.ndarray
+    asymptote_phase_deg: np.ndarray
+    zeros_rad_s: np.ndarray
+    poles_rad_s: np.ndarray
+    transfer: TransferResult
+    actual: ActualStage | None = None
+    actual_mag_db: np.ndarray | None = None
+    actual_phase_deg: np.ndarray | None = None
+    loop: PlantLoop | None = None
+    loop_mag_db: np.ndarray | None = None
+    loop_phase_deg: np.ndarray | None = None
+
+    @property
+    def factored(self) -> FactoredNumeric:
+        """The ideal stage in normalized factored form."""
+        return self.transfer.factored
+
+    def view_state(self) -> dict:
+        """Plain Python / numpy data (the explorer's ``view_state`` keys)."""
+        out = {
+            "f_hz": self.f_hz,
+            "exact_mag_db": self.exact_mag_db,
+            "exact_phase_deg": self.exact_phase_deg,
+            "asymptote_mag_db": self.asymptote_mag_db,
+            "asymptote_phase_deg": self.asymptote_phase_deg,
+            "poles_rad_s": self.poles_rad_s,
+            "zeros_rad_s": self.zeros_rad_s,
+        }
+        if self.actual is not None:
+            out["actual_mag_db"] = self.actual_mag_db
+            out["actual_phase_deg"] = self.actual_phase_deg
+            amp = self.actual.amplifier_loop
+            out["amplifier_loop"] = amp.to_dict() if amp is not None else None
+        if self.loop is not None:
+            out["loop_mag_db"] = self.loop_mag_db
+            out["loop_phase_deg"] = self.loop_phase_deg
+            out["loop_margins"] = self.loop.margins.to_dict()
+        return out
+
+
+class Analyzer:
+    """Per-design constant state for fast repeated analysis.
+
+    Parameters
+    ----------
+    design : Design
+        Supplies the topology, op-amp, plant and feedback gain.
+    f_hz : array of float, optional
+        Frequency grid (Hz); by default 500 log-spaced points over
+        :func:`default_band_hz` of the design at its current values.
+    """
+
+    def __init__(self, design, f_hz: np.ndarray | None = None) -> None:
+        self.design = design
+        self.evaluator = design.compile()
+        self.opamp = design.opamp if design.opamp is not None and not design.opamp.is_ideal else None
+        self.plant_fn = design.plant.factored() if design.plant is not None else None
+        if f_hz is None:
+            tr = self.evaluator(design.values)
+            extra = (self.opamp.gbw_hz,) if self.opamp is not None else ()
+            fns = [tr.factored] + ([self.plant_fn] if self.plant_fn is not None else [])
+            lo, hi = default_band_hz(*fns, extra_hz=extra)
+            f_hz = np.logspace(math.log10(lo), math.log10(hi), 500)
+        self.f_hz = np.asarray(f_hz, dtype=float)
+
+    def update(self, values: Mapping[str, float] | None = None) -> Analysis:
+        """Analyse at ``values`` (SI base units; the design's own when omitted)."""
+        ev = self.evaluator
+        tr = ev.evaluate_tuple(ev.values_tuple(values if values is not None else self.design.values))
+        fn = tr.factored
+        f = self.f_hz
+        kw = {}
+        stage_fn = fn
+        if self.opamp is not None:
+            act = actual_stage(self.design.stage, tr, self.opamp)
+            stage_fn = act.factored
+            kw.update(actual=act, actual_mag_db=exact_mag_db(act.factored, f),
+                      actual_phase_deg=exact_phase_deg(act.factored, f))
+        if self.plant_fn is not None:
+            lp = plant_loop(self.design.stage.kind, stage_fn, self.plant_fn, self.design.feedback_gain,
+                            f_min_hz=f[0], f_max_hz=f[-1])
+            kw.update(loop=lp, loop_mag_db=exact_mag_db(lp.loop, f), loop_phase_deg=exact_phase_deg(lp.loop, f))
+        return Analysis(
+            f, exact_mag_db(fn, f), exact_phase_deg(fn, f), asymptote_mag_db(fn, f), asymptote_phase_deg(fn, f),
+            tr.zeros, tr.poles, tr, **kw,
+        )
+
+
+def analysis_sections(design) -> dict:
+    """The ``amplifier_loop`` and ``loop`` sections of ``loopcraft analyze --json`` (when present)."""
+    a = Analyzer(design).update()
+    out: dict = {}
+    lines: list[str] = []
+    if a.actual is not None and a.actual.amplifier_loop is not None:
+        amp = a.actual.amplifier_loop
+        out["amplifier_loop"] = amp.to_dict()
+        if amp.crossover_hz is not None:
+            lines.append(f"amplifier loop: crossover {amp.crossover_hz:.4g} Hz, phase margin "
+                         f"{amp.phase_margin_deg:.1f}°, rate of closure {amp.rate_of_closure_db_per_decade:.0f} dB/decade")
+        if amp.departs_hz is not None:
+            lines.append(f"actual response departs from the ideal by > 1 dB above {amp.departs_hz:.4g} Hz")
+        lines += [f"warning: {w}" for w in amp.warnings]
+    if a.loop is not None:
+        m = a.loop.margins
+        out["loop"] = m.to_dict()
+        for c in m.crossovers:
+            lines.append(f"loop crossover {c.f_hz:.4g} Hz: phase margin {c.phase_margin_deg:.1f}°")
+        for g in m.gain_margins:
+            lines.append(f"loop phase crossover {g.f_hz:.4g} Hz: gain margin {g.gain_margin_db:.1f} dB")
+        if not m.crossovers:
+            lines.append("loop gain never crosses 0 dB in the analysed band")
+    out["summary_lines"] = lines
+    return out
+
+
+def response_columns(design, f_hz: np.ndarray) -> dict[str, np.ndarray]:
+    """Columns of ``loopcraft response --json``: ideal, asymptote, actual and loop curves."""
+    a = Analyzer(design, f_hz=np.asarray(f_hz, dtype=float)).update()
+    cols = {"f_hz": a.f_hz, "mag_db": a.exact_mag_db, "phase_deg": a.exact_phase_deg,
+            "asymptote_mag_db": a.asymptote_mag_db, "asymptote_phase_deg": a.asymptote_phase_deg}
+    if a.actual is not None:
+        cols["actual_mag_db"] = a.actual_mag_db
+        cols["actual_phase_deg"] = a.actual_phase_deg
+    if a.loop is not None:
+        cols["loop_mag_db"] = a.loop_mag_db
+        cols["loop_phase_deg"] = a.loop_phase_deg
+    return cols
