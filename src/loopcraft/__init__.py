@@ -26,9 +26,21 @@ from .factored import FactoredForm
 from .factors import Factor, FactoredNumeric
 from .network import Network, parse_network
 from .stage import CircuitStage, InvertingStage, NonInvertingStage, stage_from_dict
+from .topologies import TOPOLOGIES, topology, topology_names
 from .values import format_value, parse_value
 
 __version__ = "0.1.0"
+
+
+def __getattr__(name: str):
+    # The widget layer imports ipywidgets/bqplot; load it only when asked for, so the
+    # model and analysis layers stay importable without a notebook stack.
+    if name == "Explorer":
+        from .widgets import Explorer
+
+        return Explorer
+    raise AttributeError(f"module 'loopcraft' has no attribute {name!r}")
+
 
 __all__ = [
     "FORMAT_VERSION",
@@ -38,6 +50,7 @@ __all__ = [
     "Design",
     "DesignFileError",
     "Evaluator",
+    "Explorer",
     "Factor",
     "FactoredForm",
     "FactoredNumeric",
@@ -47,6 +60,7 @@ __all__ = [
     "NonInvertingStage",
     "ParseError",
     "SynthesisError",
+    "TOPOLOGIES",
     "TopologyError",
     "TransferResult",
     "format_value",
@@ -54,5 +68,7 @@ __all__ = [
     "parse_network",
     "parse_value",
     "stage_from_dict",
+    "topology",
+    "topology_names",
     "__version__",
 ]

@@ -24,7 +24,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from functools import cache
+from functools import cache, cached_property
 
 import numpy as np
 import sympy as sp
@@ -103,20 +103,46 @@ class ActualStage:
         H_actual(s) in normalized factored form (rad/s).
     ideal : FactoredNumeric
         H_ideal(s), for comparison.
-    noise_gain : FactoredNumeric or None
-        Gn(s) = 1 + Zf/Zi (None for multi-op-amp circuits).
-    amplifier_loop : AmplifierLoop or None
-        The op-amp's own loop (None for multi-op-amp circuits).
+    opamp : OpAmp
+        The amplifier model.
+    noise_gain_tf, loop_gain_tf : (num, den) or None
+        Polynomials (descending powers of s, rad/s) of Gn and of T, factored on first use.
+
+    Notes
+    -----
+    :attr:`amplifier_loop` (crossings, margins, departure frequency) is
+    computed on first use, so a slider move that only redraws curves does not
+    pay for it.
     """
 
     factored: FactoredNumeric
     ideal: FactoredNumeric
-    noise_gain: FactoredNumeric | None
-    amplifier_loop: AmplifierLoop | None
+    opamp: OpAmp
+    noise_gain_tf: tuple[np.ndarray, np.ndarray] | None = None
+    loop_gain_tf: tuple[np.ndarray, np.ndarray] | None = None
 
     def response(self, f_hz: np.ndarray) -> np.ndarray:
         """H_actual(j·2π·f) at ``f_hz`` (Hz)."""
         return self.factored.response(f_hz)
+
+    @cached_property
+    def noise_gain(self) -> FactoredNumeric | None:
+        """Gn(s) = 1 + Zf/Zi (None for circuit stages)."""
+        return factored_from_tf(*self.noise_gain_tf) if self.noise_gain_tf is not None else None
+
+    @cached_property
+    def loop_gain(self) -> FactoredNumeric | None:
+        """T(s), the op-amp's own loop gain: A/Gn, or the return ratio of a one-op-amp circuit."""
+        if self.noise_gain is not None:
+            return self.opamp.factored() * self.noise_gain.inverse()
+        return factored_from_tf(*self.loop_gain_tf) if self.loop_gain_tf is not None else None
+
+    @cached_property
+    def amplifier_loop(self) -> AmplifierLoop | None:
+        """The op-amp's own loop (None when the circuit has several op-amps)."""
+        if self.loop_gain is None:
+            return None
+        return _amplifier_loop(self.loop_gain, self.factored, self.ideal, self.opamp, self.noise_gain)
 
 
 def _pad_sub(a: np.ndarray, b: np.ndarray) -> np.ndarray:
@@ -164,9 +190,9 @@ def _circuit_actual(stage, values, a_num, a_den, n_opamps):
         for k, p in enumerate(polys):
             term = p
             for _ in range(k):
-                term = np.polymul(term, a_num)
+                term = np.convolve(term, a_num)
             for _ in range(m - k):
-                term = np.polymul(term, a_den)
+                term = np.convolve(term, a_den)
             out = _pad_add(out, term)
         return np.trim_zeros(out, "f")
 
@@ -174,7 +200,7 @@ def _circuit_actual(stage, values, a_num, a_den, n_opamps):
     loop = None
     if n_opamps == 1 and len(drows) == 2:
         # Δ = Δ0 + A·Δ1  →  T = A·Δ1/Δ0 (the op-amp's return ratio).
-        loop = (np.polymul(a_num, drows[1]), np.polymul(a_den, drows[0]))
+        loop = (np.convolve(a_num, drows[1]), np.convolve(a_den, drows[0]))
     return (num, den), loop
 
 
@@ -199,24 +225,19 @@ def actual_stage(stage, result: TransferResult, opamp: OpAmp) -> ActualStage:
     a_num, a_den = opamp.factored().tf()
     ideal = result.factored
     nh, dh = ideal.tf()
-    ng = None
     if stage.kind in ("inverting", "noninverting"):
         ngn = _pad_sub(dh, nh) if stage.kind == "inverting" else nh
-        act = (np.polymul(nh, a_num), _pad_add(np.polymul(dh, a_num), np.polymul(ngn, a_den)))
-        ng = factored_from_tf(ngn, dh)
-        loop = opamp.factored() * ng.inverse()  # T = A / Gn
-    else:
-        act, loop_tf = _circuit_actual(stage, result.values, a_num, a_den, len(stage.circuit.opamps))
-        loop = factored_from_tf(*loop_tf) if loop_tf else None
-    fact = factored_from_tf(*act)
-    amp = _amplifier_loop(loop, fact, ideal, opamp, ng) if loop is not None else None
-    return ActualStage(fact, ideal, ng, amp)
+        act = (np.convolve(nh, a_num), _pad_add(np.convolve(dh, a_num), np.convolve(ngn, a_den)))
+        return ActualStage(factored_from_tf(*act), ideal, opamp, noise_gain_tf=(ngn, dh))
+    act, loop_tf = _circuit_actual(stage, result.values, a_num, a_den, len(stage.circuit.opamps))
+    return ActualStage(factored_from_tf(*act), ideal, opamp, loop_gain_tf=loop_tf)
 
 
 def _band(*fns: FactoredNumeric, extra_hz: tuple[float, ...] = ()) -> tuple[float, float]:
     fs = [f.f_hz for fn in fns for f in fn.factors] + list(extra_hz)
     fs = [f for f in fs if math.isfinite(f) and f > 0] or [1.0]
-    return max(min(fs) / 1e3, 1e-3), min(max(fs) * 1e3, 1e13)
+    # Far below the corners too: finite A0 shows up decades below them (integrators).
+    return max(min(fs) / 1e5, 1e-6), min(max(fs) * 1e3, 1e13)
 
 
 def _departs_hz(actual: FactoredNumeric, ideal: FactoredNumeric, f_lo: float, f_hi: float) -> tuple[float | None, float | None]:

@@ -118,13 +118,18 @@ class Analyzer:
         self.evaluator = design.compile()
         self.opamp = design.opamp if design.opamp is not None and not design.opamp.is_ideal else None
         self.plant_fn = design.plant.factored() if design.plant is not None else None
+        self._plant_cache: tuple[np.ndarray, np.ndarray] | None = None
+        self.f_hz = np.asarray(f_hz, dtype=float) if f_hz is not None else np.array([1.0, 10.0])
         if f_hz is None:
-            tr = self.evaluator(design.values)
-            extra = (self.opamp.gbw_hz,) if self.opamp is not None else ()
-            fns = [tr.factored] + ([self.plant_fn] if self.plant_fn is not None else [])
-            lo, hi = default_band_hz(*fns, extra_hz=extra)
-            f_hz = np.logspace(math.log10(lo), math.log10(hi), 500)
-        self.f_hz = np.asarray(f_hz, dtype=float)
+            first = self.update()
+            extra = [self.opamp.gbw_hz] if self.opamp is not None else []
+            fns = [first.factored] + ([self.plant_fn] if self.plant_fn is not None else [])
+            if first.loop is not None:
+                fns.append(first.loop.loop)
+                extra += [c.f_hz for c in first.loop.margins.crossovers]
+            lo, hi = default_band_hz(*fns, extra_hz=tuple(extra))
+            self.f_hz = np.logspace(math.log10(lo), math.log10(hi), 500)
+            self._plant_cache = None
 
     def update(self, values: Mapping[str, float] | None = None) -> Analysis:
         """Analyse at ``values`` (SI base units; the design's own when omitted)."""
@@ -140,13 +145,34 @@ class Analyzer:
             kw.update(actual=act, actual_mag_db=exact_mag_db(act.factored, f),
                       actual_phase_deg=exact_phase_deg(act.factored, f))
         if self.plant_fn is not None:
-            lp = plant_loop(self.design.stage.kind, stage_fn, self.plant_fn, self.design.feedback_gain,
-                            f_min_hz=f[0], f_max_hz=f[-1])
-            kw.update(loop=lp, loop_mag_db=exact_mag_db(lp.loop, f), loop_phase_deg=exact_phase_deg(lp.loop, f))
+            # The plant does not move with the sliders: its curves on the grid are cached, and
+            # the loop curves are plant + stage in dB and degrees (L = P·k_fb·(∓H); the sign
+            # and branch enter as one constant phase offset).
+            p_mag, p_phase = self._plant_curves()
+            k_db = 20.0 * math.log10(abs(self.design.feedback_gain))
+            s_mag = kw["actual_mag_db"] if "actual_mag_db" in kw else None
+            s_phase = kw["actual_phase_deg"] if "actual_phase_deg" in kw else None
+            if s_mag is None:
+                s_mag, s_phase = exact_mag_db(fn, f), exact_phase_deg(fn, f)
+            # Margins are searched over the loop's own band (beyond its corners and 0 dB
+            # crossing), so a crossing that a slider pushes off the display is still found.
+            lp = plant_loop(self.design.stage.kind, stage_fn, self.plant_fn, self.design.feedback_gain)
+            loop_phase = p_phase + s_phase + _branch_offset_deg(lp.loop, p_phase[0] + s_phase[0], f[0])
+            kw.update(loop=lp, loop_mag_db=p_mag + s_mag + k_db, loop_phase_deg=loop_phase)
         return Analysis(
             f, exact_mag_db(fn, f), exact_phase_deg(fn, f), asymptote_mag_db(fn, f), asymptote_phase_deg(fn, f),
             tr.zeros, tr.poles, tr, **kw,
         )
+
+    def _plant_curves(self) -> tuple[np.ndarray, np.ndarray]:
+        if self._plant_cache is None:
+            self._plant_cache = (exact_mag_db(self.plant_fn, self.f_hz), exact_phase_deg(self.plant_fn, self.f_hz))
+        return self._plant_cache
+
+
+def _branch_offset_deg(loop: FactoredNumeric, summed_deg: float, f0_hz: float) -> float:
+    """The constant (a multiple of 180°) that puts plant + stage phase on the loop's own branch."""
+    return float(exact_phase_deg(loop, np.array([f0_hz]))[0]) - summed_deg
 
 
 def analysis_sections(design) -> dict:

@@ -181,9 +181,9 @@ class FactoredNumeric:
         for f in self.factors:
             poly = np.array(f.coefficients[::-1])
             if f.role == "zero":
-                num = np.polymul(num, poly)
+                num = np.convolve(num, poly)
             else:
-                den = np.polymul(den, poly)
+                den = np.convolve(den, poly)
         n = self.origin_order
         if n > 0:
             num = np.concatenate([num, np.zeros(n)])
@@ -312,6 +312,8 @@ def polynomial_roots(c: Sequence[float]) -> np.ndarray:
             break
         x = np.where(better, x_new, x)
         px = np.where(better, p_new, px)
+        if np.all(np.abs(step) <= 1e-15 * np.abs(x)):
+            break
     return x * math.exp(log_sigma)
 
 
