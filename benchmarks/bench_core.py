@@ -98,10 +98,14 @@ def main(n_fast: int = 3000, n_sympy: int = 30) -> dict[str, float]:
     }
     print("Type III stage update: values -> poles, zeros, 500-point response")
     print(f"  loopcraft compiled path : median {res['median_ms']:.4f} ms   (target <= 0.5 ms)")
-    print(f"  sympy subs+lambdify path: median {res['sympy_median_ms']:.2f} ms   "
-          f"-> loopcraft is {res['speedup_vs_sympy']:.0f}x faster (target >= 100x)")
-    print(f"  bare numpy floor        : median {res['floor_median_ms']:.4f} ms   "
-          f"-> loopcraft / floor = {res['ratio_to_floor']:.2f} (target <= 2.5)")
+    print(
+        f"  sympy subs+lambdify path: median {res['sympy_median_ms']:.2f} ms   "
+        f"-> loopcraft is {res['speedup_vs_sympy']:.0f}x faster (target >= 100x)"
+    )
+    print(
+        f"  bare numpy floor        : median {res['floor_median_ms']:.4f} ms   "
+        f"-> loopcraft / floor = {res['ratio_to_floor']:.2f} (target <= 2.5)"
+    )
     ok = res["median_ms"] <= 0.5 and res["speedup_vs_sympy"] >= 100 and res["ratio_to_floor"] <= 2.5
     print("  targets:", "met" if ok else "NOT met")
     return res

@@ -49,8 +49,13 @@ def test_noninverting_bandwidth():
 def test_circuit_stage_matches_inverting_formula():
     # The same inverting amplifier as a circuit with A(s) in the nodal equations
     # gives the textbook H = (-Zf/Zi)/(1 + (1 + Zf/Zi)/A) (Franco 2002, §6.2).
-    circ = {"kind": "circuit", "elements": [["R1", "in", "n"], ["R2", "n", "out"]],
-            "opamps": [{"plus": "gnd", "minus": "n", "out": "out"}], "input": "in", "output": "out"}
+    circ = {
+        "kind": "circuit",
+        "elements": [["R1", "in", "n"], ["R2", "n", "out"]],
+        "opamps": [{"plus": "gnd", "minus": "n", "out": "out"}],
+        "input": "in",
+        "output": "out",
+    }
     dc = design(circ, {"R1": "1k", "R2": "10k"}, SINGLE)
     di = design({"kind": "inverting", "input": "R1", "feedback": "R2"}, {"R1": "1k", "R2": "10k"}, SINGLE)
     f = np.logspace(1, 8, 50)
@@ -110,7 +115,6 @@ def test_integrator_departs_below_at_finite_a0():
 
 
 def test_ideal_opamp_has_no_actual():
-    d = design({"kind": "inverting", "input": "R1", "feedback": "R2"}, {"R1": "1k", "R2": "10k"},
-               {"model": "ideal"})
+    d = design({"kind": "inverting", "input": "R1", "feedback": "R2"}, {"R1": "1k", "R2": "10k"}, {"model": "ideal"})
     with pytest.raises(AnalysisError, match="no real op-amp"):
         d.actual()

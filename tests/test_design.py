@@ -108,15 +108,20 @@ def test_circuit_stage_round_trip(tmp_path):
 
 
 value_text = st.builds(
-    lambda m, p: f"{m}{p}", st.sampled_from(["1", "2.2", "4.7", "10", "33", "680"]), st.sampled_from(["", "k", "M", "n", "p", "u"])
+    lambda m, p: f"{m}{p}",
+    st.sampled_from(["1", "2.2", "4.7", "10", "33", "680"]),
+    st.sampled_from(["", "k", "M", "n", "p", "u"]),
 )
 
 
 @settings(max_examples=40, deadline=None)
 @given(st.fixed_dictionaries({n: value_text for n in ("R1", "R2", "R3", "C1", "C2", "C3")}), st.text(max_size=30))
 def test_file_round_trip_property(values, notes):
-    d = {"loopcraft": 1, "stage": {"kind": "inverting", "input": "R1 || (R3 + C3)", "feedback": "(R2 + C1) || C2"},
-         "values": values}
+    d = {
+        "loopcraft": 1,
+        "stage": {"kind": "inverting", "input": "R1 || (R3 + C3)", "feedback": "(R2 + C1) || C2"},
+        "values": values,
+    }
     if notes:
         d["notes"] = notes
     design = lc.Design.from_dict(d)

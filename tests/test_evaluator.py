@@ -28,8 +28,13 @@ def test_inverting_gain():
 
 def test_noninverting_gain():
     # H = 1 + Rf/Rg: Sedra & Smith 2015, section 2.3.
-    d = Design.from_dict({"loopcraft": 1, "stage": {"kind": "noninverting", "ground": "R1", "feedback": "R2"},
-                          "values": {"R1": "1k", "R2": "9k"}})
+    d = Design.from_dict(
+        {
+            "loopcraft": 1,
+            "stage": {"kind": "noninverting", "ground": "R1", "feedback": "R2"},
+            "values": {"R1": "1k", "R2": "9k"},
+        }
+    )
     assert d.transfer().gain == pytest.approx(10.0, rel=1e-15)
 
 

@@ -15,13 +15,15 @@ EX = Path(__file__).resolve().parents[1] / "src" / "loopcraft" / "examples"
 
 
 def integrator_loop(r=10e3, c=10e-9, g=2.5, fp_hz=2e3, **extra):
-    return Design.from_dict({
-        "loopcraft": 1,
-        "stage": {"kind": "inverting", "input": "R1", "feedback": "C1"},
-        "values": {"R1": r, "C1": c},
-        "plant": {"kind": "general", "gain": g, "poles_hz": [fp_hz]},
-        **extra,
-    })
+    return Design.from_dict(
+        {
+            "loopcraft": 1,
+            "stage": {"kind": "inverting", "input": "R1", "feedback": "C1"},
+            "values": {"R1": r, "C1": c},
+            "plant": {"kind": "general", "gain": g, "poles_hz": [fp_hz]},
+            **extra,
+        }
+    )
 
 
 def test_integrator_with_one_pole_closed_form():
@@ -41,9 +43,15 @@ def test_integrator_with_one_pole_closed_form():
 def test_sign_convention_noninverting():
     # A non-inverting stage enters the loop with a + sign (loop gain excludes the summing
     # junction's minus sign): L = P·k_fb·H. Common practice, no source.
-    d = Design.from_dict({"loopcraft": 1, "stage": {"kind": "noninverting", "ground": "R1", "feedback": "R2"},
-                          "values": {"R1": "1k", "R2": "9k"},
-                          "plant": {"kind": "general", "gain": 1.0, "origin_order": -1}, "feedback_gain": 0.5})
+    d = Design.from_dict(
+        {
+            "loopcraft": 1,
+            "stage": {"kind": "noninverting", "ground": "R1", "feedback": "R2"},
+            "values": {"R1": "1k", "R2": "9k"},
+            "plant": {"kind": "general", "gain": 1.0, "origin_order": -1},
+            "feedback_gain": 0.5,
+        }
+    )
     lp = d.loop()
     assert lp.loop.gain == pytest.approx(5.0)
     (x,) = lp.margins.crossovers  # L = 5/s crosses at 5 rad/s with 90° of margin
@@ -93,8 +101,14 @@ def test_cli_reports_margins(capsys):
     assert set(doc["loop"]["gain_margins"][0]) == {"f_hz", "gain_margin_db"}
     assert main(["response", str(EX / "bus48_loop.json"), "--hz", "1k", "30k", "--json"]) == 0
     pt = json.loads(capsys.readouterr().out)["points"][1]
-    assert set(pt) >= {"asymptote_mag_db", "asymptote_phase_deg", "actual_mag_db", "actual_phase_deg",
-                       "loop_mag_db", "loop_phase_deg"}
+    assert set(pt) >= {
+        "asymptote_mag_db",
+        "asymptote_phase_deg",
+        "actual_mag_db",
+        "actual_phase_deg",
+        "loop_mag_db",
+        "loop_phase_deg",
+    }
     assert pt["loop_mag_db"] == pytest.approx(0.0, abs=0.05)  # 30 kHz is the designed crossover
 
 

@@ -1,5 +1,3 @@
-import math
-
 import mpmath
 import pytest
 import sympy as sp
@@ -9,8 +7,9 @@ from loopcraft._symbols import S, component_symbol
 
 
 def inv(zi, zf, **values):
-    return Design.from_dict({"loopcraft": 1, "stage": {"kind": "inverting", "input": zi, "feedback": zf},
-                             "values": values})
+    return Design.from_dict(
+        {"loopcraft": 1, "stage": {"kind": "inverting", "input": zi, "feedback": zf}, "values": values}
+    )
 
 
 def test_type2_pole_and_zero_sensitivities():
@@ -34,13 +33,19 @@ def test_sallen_key_q_and_w0_sensitivities():
     # Unity-gain Sallen-Key low-pass: ω0 = 1/sqrt(R1 R2 C1 C2) gives S = -1/2 for every part;
     # Q = sqrt(R1 R2 C1 C2)/(C2 (R1 + R2)) gives S^Q_C1 = 1/2, S^Q_C2 = -1/2,
     # S^Q_R1 = 1/2 - R1/(R1 + R2). Schaumann & Van Valkenburg 2001, ch. 4 (from memory).
-    d = Design.from_dict({
-        "loopcraft": 1,
-        "stage": {"kind": "circuit",
-                  "elements": [["R1", "in", "a"], ["R2", "a", "b"], ["C1", "a", "out"], ["C2", "b", "gnd"]],
-                  "opamps": [{"plus": "b", "minus": "out", "out": "out"}], "input": "in", "output": "out"},
-        "values": {"R1": "10k", "R2": "22k", "C1": "22n", "C2": "4.7n"},
-    })
+    d = Design.from_dict(
+        {
+            "loopcraft": 1,
+            "stage": {
+                "kind": "circuit",
+                "elements": [["R1", "in", "a"], ["R2", "a", "b"], ["C1", "a", "out"], ["C2", "b", "gnd"]],
+                "opamps": [{"plus": "b", "minus": "out", "out": "out"}],
+                "input": "in",
+                "output": "out",
+            },
+            "values": {"R1": "10k", "R2": "22k", "C1": "22n", "C2": "4.7n"},
+        }
+    )
     rows = {r.label: r for r in d.sensitivity().rows}
     w = rows["ω0p1"].by_component
     assert all(v == pytest.approx(-0.5, rel=1e-12) for v in w.values())
@@ -65,7 +70,7 @@ def test_numeric_factor_sensitivity_matches_mpmath():
         cs = [mpmath.mpf(str(sp.N(c.subs(sub), 40))) for c in den.all_coeffs()]
         while cs[-1] == 0:
             cs.pop()
-        return sorted((abs(r) for r in mpmath.polyroots(cs, maxsteps=400, extraprec=300)))
+        return sorted(abs(r) for r in mpmath.polyroots(cs, maxsteps=400, extraprec=300))
 
     h = mpmath.mpf("1e-12")
     for r in numeric:

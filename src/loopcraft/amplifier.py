@@ -1,12 +1,12 @@
-"""The stage with a real op-amp: actual response, noise gain and the amplifier's own loop.
+r"""The stage with a real op-amp: actual response, noise gain and the amplifier's own loop.
 
 For an inverting or non-inverting stage with open-loop gain A(s):
 
 .. math::
 
-    \\text{noise gain } G_n = 1 + Z_f/Z_i, \\qquad
-    T(s) = A(s)/G_n(s) = A\\,\\frac{Z_i}{Z_i + Z_f}, \\qquad
-    H_{act} = \\frac{H_{ideal}}{1 + 1/T} = \\frac{H_{ideal}}{1 + G_n/A}
+    \text{noise gain } G_n = 1 + Z_f/Z_i, \qquad
+    T(s) = A(s)/G_n(s) = A\,\frac{Z_i}{Z_i + Z_f}, \qquad
+    H_{act} = \frac{H_{ideal}}{1 + 1/T} = \frac{H_{ideal}}{1 + G_n/A}
 
 (Franco, "Design with Operational Amplifiers and Analog Integrated
 Circuits", 3rd ed., 2002, ch. 6). For an inverting stage Gn = 1 - H_ideal,
@@ -180,9 +180,9 @@ def _circuit_actual(stage, values, a_num, a_den, n_opamps):
     flat = fn(*(values[n] for n in names))
     rows, k = [], 0
     for length in nshape + dshape:
-        rows.append(np.array(flat[k:k + length], dtype=float))
+        rows.append(np.array(flat[k : k + length], dtype=float))
         k += length
-    nrows, drows = rows[: len(nshape)], rows[len(nshape):]
+    nrows, drows = rows[: len(nshape)], rows[len(nshape) :]
     m = max(len(nrows), len(drows)) - 1
 
     def combine(polys):
@@ -240,7 +240,9 @@ def _band(*fns: FactoredNumeric, extra_hz: tuple[float, ...] = ()) -> tuple[floa
     return max(min(fs) / 1e5, 1e-6), min(max(fs) * 1e3, 1e13)
 
 
-def _departs_hz(actual: FactoredNumeric, ideal: FactoredNumeric, f_lo: float, f_hi: float) -> tuple[float | None, float | None]:
+def _departs_hz(
+    actual: FactoredNumeric, ideal: FactoredNumeric, f_lo: float, f_hi: float
+) -> tuple[float | None, float | None]:
     """(above, below): where |H_actual/H_ideal| leaves 1 ± 1 dB going up and down from best agreement."""
     f = np.logspace(math.log10(f_lo), math.log10(f_hi), int(40 * math.log10(f_hi / f_lo)) + 2)
     dev = np.abs(20 * np.log10(np.abs(actual.response(f) / ideal.response(f))))
@@ -262,8 +264,9 @@ def _departs_hz(actual: FactoredNumeric, ideal: FactoredNumeric, f_lo: float, f_
     return edge(range(i0 + 1, len(f))), edge(range(i0 - 1, -1, -1))
 
 
-def _amplifier_loop(loop: FactoredNumeric, actual: FactoredNumeric, ideal: FactoredNumeric,
-                    opamp: OpAmp, ng: FactoredNumeric | None) -> AmplifierLoop:
+def _amplifier_loop(
+    loop: FactoredNumeric, actual: FactoredNumeric, ideal: FactoredNumeric, opamp: OpAmp, ng: FactoredNumeric | None
+) -> AmplifierLoop:
     f_lo, f_hi = _band(loop, ideal, extra_hz=(opamp.gbw_hz, opamp.dominant_pole_hz))
     margins = loop_margins_factored(loop, f_lo, f_hi, points_per_decade=MARGIN_GRID_PER_DECADE)
     warnings: list[str] = []

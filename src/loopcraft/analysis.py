@@ -142,8 +142,11 @@ class Analyzer:
         if self.opamp is not None:
             act = actual_stage(self.design.stage, tr, self.opamp)
             stage_fn = act.factored
-            kw.update(actual=act, actual_mag_db=exact_mag_db(act.factored, f),
-                      actual_phase_deg=exact_phase_deg(act.factored, f))
+            kw.update(
+                actual=act,
+                actual_mag_db=exact_mag_db(act.factored, f),
+                actual_phase_deg=exact_phase_deg(act.factored, f),
+            )
         if self.plant_fn is not None:
             # The plant does not move with the sliders: its curves on the grid are cached, and
             # the loop curves are plant + stage in dB and degrees (L = P·k_fb·(∓H); the sign
@@ -160,8 +163,15 @@ class Analyzer:
             loop_phase = p_phase + s_phase + _branch_offset_deg(lp.loop, p_phase[0] + s_phase[0], f[0])
             kw.update(loop=lp, loop_mag_db=p_mag + s_mag + k_db, loop_phase_deg=loop_phase)
         return Analysis(
-            f, exact_mag_db(fn, f), exact_phase_deg(fn, f), asymptote_mag_db(fn, f), asymptote_phase_deg(fn, f),
-            tr.zeros, tr.poles, tr, **kw,
+            f,
+            exact_mag_db(fn, f),
+            exact_phase_deg(fn, f),
+            asymptote_mag_db(fn, f),
+            asymptote_phase_deg(fn, f),
+            tr.zeros,
+            tr.poles,
+            tr,
+            **kw,
         )
 
     def _plant_curves(self) -> tuple[np.ndarray, np.ndarray]:
@@ -184,8 +194,10 @@ def analysis_sections(design) -> dict:
         amp = a.actual.amplifier_loop
         out["amplifier_loop"] = amp.to_dict()
         if amp.crossover_hz is not None:
-            lines.append(f"amplifier loop: crossover {amp.crossover_hz:.4g} Hz, phase margin "
-                         f"{amp.phase_margin_deg:.1f}°, rate of closure {amp.rate_of_closure_db_per_decade:.0f} dB/decade")
+            lines.append(
+                f"amplifier loop: crossover {amp.crossover_hz:.4g} Hz, phase margin "
+                f"{amp.phase_margin_deg:.1f}°, rate of closure {amp.rate_of_closure_db_per_decade:.0f} dB/decade"
+            )
         if amp.departs_hz is not None:
             lines.append(f"actual response departs from the ideal by > 1 dB above {amp.departs_hz:.4g} Hz")
         lines += [f"warning: {w}" for w in amp.warnings]
@@ -205,8 +217,13 @@ def analysis_sections(design) -> dict:
 def response_columns(design, f_hz: np.ndarray) -> dict[str, np.ndarray]:
     """Columns of ``loopcraft response --json``: ideal, asymptote, actual and loop curves."""
     a = Analyzer(design, f_hz=np.asarray(f_hz, dtype=float)).update()
-    cols = {"f_hz": a.f_hz, "mag_db": a.exact_mag_db, "phase_deg": a.exact_phase_deg,
-            "asymptote_mag_db": a.asymptote_mag_db, "asymptote_phase_deg": a.asymptote_phase_deg}
+    cols = {
+        "f_hz": a.f_hz,
+        "mag_db": a.exact_mag_db,
+        "phase_deg": a.exact_phase_deg,
+        "asymptote_mag_db": a.asymptote_mag_db,
+        "asymptote_phase_deg": a.asymptote_phase_deg,
+    }
     if a.actual is not None:
         cols["actual_mag_db"] = a.actual_mag_db
         cols["actual_phase_deg"] = a.actual_phase_deg

@@ -1,11 +1,11 @@
-"""Symbolic derivation of a stage's transfer function, done once per topology.
+r"""Symbolic derivation of a stage's transfer function, done once per topology.
 
 The ideal transfer function of a stage is brought to
 
 .. math::
 
-    H(s) = K \\; s^{n} \\; \\frac{\\prod_i f_i(s)^{m_i}}{\\prod_j g_j(s)^{m_j}},
-    \\qquad f_i(0) = g_j(0) = 1,
+    H(s) = K \; s^{n} \; \frac{\prod_i f_i(s)^{m_i}}{\prod_j g_j(s)^{m_j}},
+    \qquad f_i(0) = g_j(0) = 1,
 
 by factoring numerator and denominator over the component symbols
 (``sympy.factor_list``). Each factor keeps its coefficients as expressions in

@@ -37,8 +37,7 @@ __all__ = ["Design", "load", "FORMAT_VERSION"]
 #: The design-file format version this package writes and reads.
 FORMAT_VERSION = 1
 
-_TOP_KEYS = ("loopcraft", "title", "stage", "values", "notes", "opamp", "plant",
-             "feedback_gain", "tolerances", "spec")
+_TOP_KEYS = ("loopcraft", "title", "stage", "values", "notes", "opamp", "plant", "feedback_gain", "tolerances", "spec")
 
 
 def _no_duplicates(pairs: list[tuple[str, Any]]) -> dict[str, Any]:
@@ -124,7 +123,7 @@ class Design:
             if k not in _TOP_KEYS:
                 raise DesignFileError(f"unknown key {k!r} (allowed: {', '.join(_TOP_KEYS)})", str(k))
         if "loopcraft" not in d:
-            raise DesignFileError(f"missing format version (expected \"loopcraft\": {FORMAT_VERSION})", "loopcraft")
+            raise DesignFileError(f'missing format version (expected "loopcraft": {FORMAT_VERSION})', "loopcraft")
         version = d["loopcraft"]
         if not isinstance(version, int) or isinstance(version, bool) or version < 1:
             raise DesignFileError(f"format version must be a positive integer (got {version!r})", "loopcraft")
@@ -163,8 +162,7 @@ class Design:
             from .spec import validate_spec
 
             validate_spec(spec, "spec")
-        return cls(stage, values, given, d.get("title", ""), d.get("notes", ""), opamp, plant,
-                   float(fb), tol, spec)
+        return cls(stage, values, given, d.get("title", ""), d.get("notes", ""), opamp, plant, float(fb), tol, spec)
 
     def to_dict(self) -> dict[str, Any]:
         """The design as a JSON-ready dict; ``Design.from_dict(d.to_dict())`` round-trips."""

@@ -16,7 +16,6 @@ solved on a frequency-scaled polynomial and polished by Newton steps on it.
 
 from __future__ import annotations
 
-import cmath
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field, replace
@@ -88,7 +87,7 @@ class TransferResult:
         return self.gain if n == 0 else (0.0 if n > 0 else math.inf)
 
     def hf_gain(self) -> float:
-        """lim |H(s)| as s → ∞ (0 or inf when the orders differ)."""
+        """Lim |H(s)| as s → ∞ (0 or inf when the orders differ)."""
         excess = len(self.zeros) - len(self.poles)
         if excess:
             return 0.0 if excess < 0 else math.inf
@@ -149,7 +148,9 @@ class Evaluator:
         """
         extra = [k for k in values if k not in self._kinds]
         if extra:
-            raise ComponentValueError(f"no element named {extra[0]!r} in this stage (elements: {', '.join(self.names)})")
+            raise ComponentValueError(
+                f"no element named {extra[0]!r} in this stage (elements: {', '.join(self.names)})"
+            )
         out = []
         for n in self.names:
             if n not in values:

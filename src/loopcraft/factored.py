@@ -185,5 +185,3 @@ class FactoredForm:
             "<table><thead><tr><th>corner</th><th>formula (rad/s)</th><th>value</th></tr></thead>"
             f"<tbody>{rows}</tbody></table></div>"
         )
-
-

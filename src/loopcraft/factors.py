@@ -1,12 +1,12 @@
-"""The numeric normalized factored form shared by stages, plants and loops.
+r"""The numeric normalized factored form shared by stages, plants and loops.
 
 A transfer function in normalized factored form is
 
 .. math::
 
-    H(s) = K \\, s^{n} \\,
-        \\frac{\\prod_z (1 \\pm s/\\omega_z) \\prod_{z2} (1 \\pm s/(Q\\omega_0) + s^2/\\omega_0^2)}
-              {\\prod_p (1 \\pm s/\\omega_p) \\prod_{p2} (1 \\pm s/(Q\\omega_0) + s^2/\\omega_0^2)}
+    H(s) = K \, s^{n} \,
+        \frac{\prod_z (1 \pm s/\omega_z) \prod_{z2} (1 \pm s/(Q\omega_0) + s^2/\omega_0^2)}
+              {\prod_p (1 \pm s/\omega_p) \prod_{p2} (1 \pm s/(Q\omega_0) + s^2/\omega_0^2)}
 
 with ``+`` for left-half-plane roots and ``-`` for right-half-plane roots,
 ``n > 0`` for zeros at the origin and ``n < 0`` for poles at the origin.
@@ -346,7 +346,6 @@ def factored_from_tf(num: Sequence[float], den: Sequence[float]) -> FactoredNume
     fn = factors_from_roots(zr, pr, gain)
     if fn.origin_order != 0 or sum(f.order for f in fn.factors) != len(zr) + len(pr):
         raise AnalysisError(
-            "polynomial roots span too many decades to separate from the origin "
-            f"(num={list(num)!r}, den={list(den)!r})"
+            f"polynomial roots span too many decades to separate from the origin (num={list(num)!r}, den={list(den)!r})"
         )
     return FactoredNumeric(gain, zn - zd, fn.factors)

@@ -1,10 +1,10 @@
-"""The loop a stage closes around a plant: loop gain, margins, closed loop, step.
+r"""The loop a stage closes around a plant: loop gain, margins, closed loop, step.
 
 Sign convention: the loop gain excludes the summing junction's minus sign.
 For an inverting stage (and a ``circuit`` stage, which loopcraft treats as an
 error amplifier sensing at its input)
 
-.. math::  L(s) = P(s) \\cdot k_{fb} \\cdot (-H(s)),
+.. math::  L(s) = P(s) \cdot k_{fb} \cdot (-H(s)),
 
 and for a non-inverting stage L(s) = P(s)·k_fb·H(s), where P is the plant and
 k_fb the divider or sensor gain (V/V). Phase margin = 180° + ∠L at |L| = 1;
@@ -86,8 +86,15 @@ class PlantLoop:
         return t, y
 
 
-def plant_loop(stage_kind: str, stage: FactoredNumeric, plant: FactoredNumeric, feedback_gain: float = 1.0,
-               *, f_min_hz: float | None = None, f_max_hz: float | None = None) -> PlantLoop:
+def plant_loop(
+    stage_kind: str,
+    stage: FactoredNumeric,
+    plant: FactoredNumeric,
+    feedback_gain: float = 1.0,
+    *,
+    f_min_hz: float | None = None,
+    f_max_hz: float | None = None,
+) -> PlantLoop:
     """Form the loop gain and find every crossover and gain margin.
 
     Parameters

@@ -93,9 +93,7 @@ class Parallel:
 
     def to_text(self) -> str:
         """Return the expression text of this node."""
-        return " || ".join(
-            f"({p.to_text()})" if isinstance(p, Series) else p.to_text() for p in self.parts
-        )
+        return " || ".join(f"({p.to_text()})" if isinstance(p, Series) else p.to_text() for p in self.parts)
 
     def names(self) -> tuple[str, ...]:
         """Element names in order of appearance."""
@@ -244,9 +242,7 @@ class _Parser:
             if ch.isalpha():
                 bad = m.end() if m else self.pos
                 if m is None:
-                    raise self.error(
-                        f"element names start with R, C or L (got {ch!r})"
-                    )
+                    raise self.error(f"element names start with R, C or L (got {ch!r})")
                 raise self.error(f"unexpected {self.text[bad]!r} in element name", bad)
             if ch in "+|":
                 raise self.error(f"expected an element or '(' before {ch!r}")

@@ -1,11 +1,11 @@
-"""Which part moves which corner: normalized sensitivities of poles, zeros, ω0 and Q.
+r"""Which part moves which corner: normalized sensitivities of poles, zeros, ω0 and Q.
 
 For a corner y (ω of a real root, ω0 or Q of a second-order factor) and a
 component x the normalized sensitivity is
 
 .. math::
 
-    S^{y}_{x} = \\frac{\\partial \\ln y}{\\partial \\ln x} = \\frac{x}{y}\\frac{\\partial y}{\\partial x},
+    S^{y}_{x} = \frac{\partial \ln y}{\partial \ln x} = \frac{x}{y}\frac{\partial y}{\partial x},
 
 so S = -1 means "1 % more x moves y 1 % down". Where the corner has a formula
 (first- and second-order factors over the symbols) the sensitivity is derived
@@ -80,8 +80,14 @@ class Sensitivity:
     def to_dict(self) -> list[dict]:
         """JSON-ready rows."""
         return [
-            {"label": r.label, "role": r.role, "quantity": r.quantity, "value": r.value,
-             "sensitivity": dict(r.by_component), "formulas": dict(r.formulas) if r.formulas else None}
+            {
+                "label": r.label,
+                "role": r.role,
+                "quantity": r.quantity,
+                "value": r.value,
+                "sensitivity": dict(r.by_component),
+                "formulas": dict(r.formulas) if r.formulas else None,
+            }
             for r in self.rows
         ]
 
@@ -162,8 +168,19 @@ def sensitivity(design, values: Mapping[str, float] | None = None, *, rel_step: 
         if entry is not None:
             for (qname, fn, texts), (_q, value) in zip(entry, base[i], strict=True):
                 s = fn(*vals)
-                rows.append((i, CornerSensitivity("", role, qname, value, dict(zip(names, map(float, s), strict=True)),
-                                                  dict(zip(names, texts, strict=True)))))
+                rows.append(
+                    (
+                        i,
+                        CornerSensitivity(
+                            "",
+                            role,
+                            qname,
+                            value,
+                            dict(zip(names, map(float, s), strict=True)),
+                            dict(zip(names, texts, strict=True)),
+                        ),
+                    )
+                )
         else:
             for k, (qname, value) in enumerate(base[i]):
                 by = {}

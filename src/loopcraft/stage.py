@@ -185,7 +185,8 @@ def stage_from_dict(d: Mapping[str, Any], key_path: str = "stage") -> Stage:
     d : mapping
         ``{"kind": "inverting", "input": ..., "feedback": ...}``,
         ``{"kind": "noninverting", "ground": ..., "feedback": ...}`` or
-        ``{"kind": "circuit", "elements": [[name, a, b], ...], "opamps": [{"plus", "minus", "out"}], "input": node, "output": node}``.
+        ``{"kind": "circuit", "elements": [[name, a, b], ...],
+        "opamps": [{"plus", "minus", "out"}], "input": node, "output": node}``.
     key_path : str
         Where the section sits in the file, for error messages.
 
@@ -199,11 +200,15 @@ def stage_from_dict(d: Mapping[str, Any], key_path: str = "stage") -> Stage:
         raise DesignFileError(f"expected an object (got {type(d).__name__})", key_path)
     kind = d.get("kind")
     if kind not in _KEYS:
-        raise DesignFileError(f"unknown stage kind {kind!r} (expected one of {', '.join(STAGE_KINDS)})", f"{key_path}.kind")
+        raise DesignFileError(
+            f"unknown stage kind {kind!r} (expected one of {', '.join(STAGE_KINDS)})", f"{key_path}.kind"
+        )
     allowed, required = _KEYS[kind]
     for k in d:
         if k not in allowed:
-            raise DesignFileError(f"unknown key {k!r} for a {kind} stage (allowed: {', '.join(sorted(allowed))})", f"{key_path}.{k}")
+            raise DesignFileError(
+                f"unknown key {k!r} for a {kind} stage (allowed: {', '.join(sorted(allowed))})", f"{key_path}.{k}"
+            )
     for k in required:
         if k not in d:
             raise DesignFileError(f"missing key {k!r} for a {kind} stage", f"{key_path}.{k}")
@@ -233,12 +238,18 @@ def stage_from_dict(d: Mapping[str, Any], key_path: str = "stage") -> Stage:
                 raise DesignFileError(f"expected {{'plus', 'minus', 'out'}} (got {o!r})", p)
             extra = set(o) - {"plus", "minus", "out"}
             if extra:
-                raise DesignFileError(f"unknown key {sorted(extra)[0]!r} (allowed: minus, out, plus)", f"{p}.{sorted(extra)[0]}")
+                raise DesignFileError(
+                    f"unknown key {sorted(extra)[0]!r} (allowed: minus, out, plus)", f"{p}.{sorted(extra)[0]}"
+                )
             for k in ("plus", "minus", "out"):
                 if k not in o:
                     raise DesignFileError(f"missing key {k!r}", f"{p}.{k}")
-            ops.append(OpampPins(_node(o["plus"], p + ".plus"), _node(o["minus"], p + ".minus"), _node(o["out"], p + ".out")))
-        circuit = Circuit(tuple(elems), tuple(ops), _node(d["input"], f"{key_path}.input"), _node(d["output"], f"{key_path}.output"))
+            ops.append(
+                OpampPins(_node(o["plus"], p + ".plus"), _node(o["minus"], p + ".minus"), _node(o["out"], p + ".out"))
+            )
+        circuit = Circuit(
+            tuple(elems), tuple(ops), _node(d["input"], f"{key_path}.input"), _node(d["output"], f"{key_path}.output")
+        )
         stage = CircuitStage(circuit)
         stage.transfer_expr()  # reject undefined circuits now, not at first use
         return stage

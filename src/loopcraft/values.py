@@ -28,8 +28,22 @@ MIN_VALUE = 1e-18
 MAX_VALUE = 1e15
 
 _PREFIX = {
-    "a": -18, "f": -15, "p": -12, "n": -9, "u": -6, "µ": -6, "μ": -6,
-    "m": -3, "k": 3, "K": 3, "M": 6, "meg": 6, "Meg": 6, "MEG": 6, "G": 9, "T": 12,
+    "a": -18,
+    "f": -15,
+    "p": -12,
+    "n": -9,
+    "u": -6,
+    "µ": -6,
+    "μ": -6,
+    "m": -3,
+    "k": 3,
+    "K": 3,
+    "M": 6,
+    "meg": 6,
+    "Meg": 6,
+    "MEG": 6,
+    "G": 9,
+    "T": 12,
 }
 _UNITS = {
     "resistor": ("Ω", "ω", "ohm", "ohms", "Ohm", "Ohms"),
@@ -72,8 +86,7 @@ def _check_range(name: str, x: float, text: object) -> float:
         raise ComponentValueError(f"{name}: value must be > 0 (got {text!r})")
     if not (MIN_VALUE <= x <= MAX_VALUE):
         raise ComponentValueError(
-            f"{name}: value {text!r} is outside the accepted range {MIN_VALUE:g} .. {MAX_VALUE:g} "
-            "of the base unit"
+            f"{name}: value {text!r} is outside the accepted range {MIN_VALUE:g} .. {MAX_VALUE:g} of the base unit"
         )
     return x
 
@@ -94,7 +107,9 @@ def _parse_text(text: str, name: str, kind: str | None) -> float:
             if mark in "Rr":
                 exp = 0
                 if kind not in (None, "resistor"):
-                    raise _fail(name, text, lead + m.start("mark"), f"'R' as a decimal mark is for resistors, not a {kind}")
+                    raise _fail(
+                        name, text, lead + m.start("mark"), f"'R' as a decimal mark is for resistors, not a {kind}"
+                    )
             else:
                 exp = _PREFIX[mark]
             unit = rest.group("unit")
@@ -110,7 +125,9 @@ def _parse_text(text: str, name: str, kind: str | None) -> float:
         partial = _SUFFIX.match(s, m.end())
         pos = partial.end() if partial else m.end()
         raise _fail(
-            name, text, lead + pos,
+            name,
+            text,
+            lead + pos,
             "unexpected character (expected an SI prefix a f p n u µ m k M G T and an optional unit Ω/F/H)",
         )
     num = m.group("num")
@@ -161,12 +178,25 @@ def parse_value(value: str | float | int, *, name: str = "value", kind: str | No
     if isinstance(value, Real):
         return _check_range(name, float(value), value)
     if not isinstance(value, str):
-        raise ComponentValueError(f"{name}: expected a number or text such as '10k', got {type(value).__name__} {value!r}")
+        raise ComponentValueError(
+            f"{name}: expected a number or text such as '10k', got {type(value).__name__} {value!r}"
+        )
     return _check_range(name, _parse_text(value, name, kind), value)
 
 
-_ENG = [(-18, "a"), (-15, "f"), (-12, "p"), (-9, "n"), (-6, "µ"), (-3, "m"), (0, ""),
-        (3, "k"), (6, "M"), (9, "G"), (12, "T")]
+_ENG = [
+    (-18, "a"),
+    (-15, "f"),
+    (-12, "p"),
+    (-9, "n"),
+    (-6, "µ"),
+    (-3, "m"),
+    (0, ""),
+    (3, "k"),
+    (6, "M"),
+    (9, "G"),
+    (12, "T"),
+]
 
 
 def format_value(x: float, unit: str = "", *, digits: int = 3) -> str:
