@@ -352,6 +352,7 @@ def test_equal_circuits_share_the_cache() -> None:
 
 
 def test_lists_are_accepted_and_stored_as_tuples() -> None:
+    # Common practice, no source: design files give lists; the value is hashable.
     c = Circuit([["R1", "in", "m"], ["R2", "m", "out"]], [("gnd", "m", "out")], "in", "out")
     assert c == inverting()
     assert c.component_names == ("R1", "R2")
@@ -486,8 +487,8 @@ def test_opamp_without_feedback() -> None:
 
 def test_feedback_through_another_opamp_is_accepted() -> None:
     # Op-amp 1 closes its loop only through the inverting stage around op-amp 2,
-    # into its non-inverting input: overall H = -R2/R1 (from memory: the loop
-    # forces Vo2 = -Vin R2/R1 through the virtual ground at m1).
+    # into its non-inverting input.  Hand derivation (common practice, no source):
+    # V(m1) = V(gnd) = 0, so KCL at m1 gives Vin/R1 + Vo2/R2 = 0, H = -R2/R1.
     c = Circuit(
         (("R1", "in", "m1"), ("R2", "m1", "o2"), ("R3", "o1", "m2"), ("R4", "m2", "o2")),
         (OpampPins("m1", "gnd", "o1"), OpampPins("gnd", "m2", "o2")), "in", "o2")

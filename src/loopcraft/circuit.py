@@ -26,11 +26,20 @@ matrix entries are then integer polynomials, and ``Vout = det(M_out)/det(M)``
 by Cramer's rule.  Both determinants are computed fraction-free: a maximum
 matching and the strongly connected components of the matrix graph give the
 block-triangular form (cascaded op-amp stages decouple into blocks), the
-determinant is the product of the block determinants (Bareiss elimination
-for blocks larger than 2x2), and each block determinant, which is linear in
-every ``y``, is mapped to a polynomial in s and the component values by
+determinant is the product of the block determinants, and each block
+determinant is expanded along its rows with memoization on the set of used
+columns (sparse and division free; in measurements it beat Bareiss
+elimination on every circuit tried, Bareiss remains the fallback for very
+large dense blocks).  Each block determinant, which is linear in every
+``y``, is mapped to a polynomial in s and the component values by
 multiplying it by the impedances ``R`` and ``s*L`` of the elements it
 contains.  Common factors are removed block by block with polynomial gcds.
+Results are cached per ``(circuit, opamp_gain)``.
+
+Typical first-solve times (one machine, sympy 1.14): a Type III compensator
+or a Tow-Thomas biquad 1-30 ms, two cascaded multiple-feedback sections
+5-30 ms, three cascaded sections with a symbolic gain ``A`` about 0.3 s, a
+nine-section LC ladder (thousands of terms) about 1 s.
 
 Structural rules (checked when a :class:`Circuit` is built)
 -----------------------------------------------------------
@@ -421,6 +430,11 @@ def _normalize_gain(gain: Any) -> sp.Expr | None:
         raise ComponentValueError(
             f"opamp_gain = {gain!r}; expected None (ideal) or a sympy expression or number"
         )
+    return _normalize_gain_value(gain)
+
+
+@lru_cache(maxsize=256)
+def _normalize_gain_value(gain: int | float | sp.Expr) -> sp.Expr:
     if isinstance(gain, float):
         expr: sp.Expr = sp.Float(gain)
     elif isinstance(gain, int):
@@ -607,7 +621,7 @@ def _perm_sign(perm: list[int]) -> int:
 
 #: Largest number of partial-expansion states for which a block determinant
 #: is expanded by rows (division free, sparse); denser blocks use Bareiss.
-_EXPANSION_STATE_LIMIT = 3000
+_EXPANSION_STATE_LIMIT = 32768
 
 
 def _row_order(sub: list[dict[int, PolyElement]]) -> list[int]:

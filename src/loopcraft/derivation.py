@@ -126,7 +126,7 @@ def _split(poly_expr: sp.Expr, role: str) -> tuple[sp.Expr, int, list[SymbolicFa
         coeffs = tuple(reversed(p.all_coeffs()))
         if p.degree() == 1 and coeffs[0] == 0:
             # f = c1*s: a root at the origin (c1 is s-free).
-            origin += m
+            origin += int(m)
             const *= coeffs[1] ** m
             continue
         const *= coeffs[0] ** m
