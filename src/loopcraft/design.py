@@ -315,6 +315,26 @@ class Design:
             raise AnalysisError("this design has no plant (add a 'plant' section)")
         return self.analyze().loop
 
+    def record(self, notes: str = "", **kw: Any):
+        """The design record: renders inline in a notebook, exports to HTML or Markdown.
+
+        Parameters
+        ----------
+        notes : str
+            The decision in words, shown in the record.
+        **kw
+            Passed to :func:`loopcraft.record.record` (``series``, ``spread``, ``seed``, ``samples``).
+        """
+        from .record import record
+
+        return record(self, notes, **kw)
+
+    def snap(self, series: str = "E24", **kw: Any):
+        """Snap R and C to an IEC 60063 series; see :func:`loopcraft.snapping.snap_design`."""
+        from .snapping import snap_design
+
+        return snap_design(self, series, **kw)
+
     def sensitivity(self):
         """Normalized sensitivities ∂ln(corner)/∂ln(component); see :mod:`loopcraft.sensitivity`."""
         from .sensitivity import sensitivity
