@@ -32,6 +32,33 @@ def formula_text(expr: sp.Expr) -> str:
     return sp.sstr(expr).replace("**", "^").replace("*", "·")
 
 
+def _root_text(expr: sp.Expr) -> str:
+    """sqrt(expr) as text, squares taken out: sqrt(R1^2·C1) -> ``R1·sqrt(C1)``."""
+    outside, inside = [], []
+    for base, exp in (term.as_base_exp() for term in sp.Mul.make_args(expr)):
+        if exp.is_Integer:
+            q, r = divmod(int(exp), 2)
+            outside.append(base**q)
+            inside.append(base**r)
+        else:
+            inside.append(base**exp)
+    out, inn = sp.Mul(*outside), sp.Mul(*inside)
+    root = "" if inn == 1 else f"sqrt({formula_text(inn)})"
+    if out == 1:
+        return root or "1"
+    return formula_text(out) + (f"·{root}" if root else "")
+
+
+def _sqrt_ratio_text(expr: sp.Expr) -> str:
+    """sqrt(n/d) written as ``sqrt(n)/sqrt(d)`` with whole products under each root."""
+    n, d = sp.fraction(expr)
+    top = _root_text(n)
+    if d == 1:
+        return top
+    bottom = _root_text(d)
+    return f"{top}/({bottom})" if "·" in bottom and not bottom.startswith("sqrt(") else f"{top}/{bottom}"
+
+
 @dataclass(frozen=True)
 class SymbolicFactor:
     """One factor f(s) = c0 + c1·s + … + cd·s^d of the numerator or denominator.
@@ -71,6 +98,24 @@ class SymbolicFactor:
         if self.degree != 2:
             return None
         return sp.powsimp(sp.sqrt(sp.factor(c[0] * c[2])) / sp.factor(c[1]), force=True)
+
+    @property
+    def corner_text(self) -> str | None:
+        """ω or ω0 as text, square roots kept whole: ``1/sqrt(C1·C2·R1·R2)``."""
+        c = self.coefficients
+        if self.degree == 1:
+            return formula_text(sp.factor(c[0] / c[1]))
+        if self.degree == 2:
+            return _sqrt_ratio_text(sp.factor(c[0] / c[2]))
+        return None
+
+    @property
+    def q_text(self) -> str | None:
+        """Q as text, e.g. ``sqrt(C1·C2·R1·R2)/(C2·(R1 + R2))``."""
+        c = self.coefficients
+        if self.degree != 2:
+            return None
+        return f"{_sqrt_ratio_text(sp.factor(c[0] * c[2]))}/({formula_text(sp.factor(c[1]))})"
 
     def normalized_expr(self) -> sp.Expr:
         """f(s)/f(0) as an expression in s and the component symbols."""

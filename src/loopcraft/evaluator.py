@@ -212,9 +212,7 @@ class Evaluator:
 
 
 def _formulas(f) -> tuple[str | None, str | None]:
-    w = f.corner_expr
-    q = f.q_expr
-    return (formula_text(w) if w is not None else None, formula_text(q) if q is not None else None)
+    return f.corner_text, f.q_text
 
 
 _CACHE: dict[Derivation, Evaluator] = {}
