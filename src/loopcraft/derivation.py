@@ -192,8 +192,9 @@ def _derive(transfer: sp.Expr, names: tuple[str, ...]) -> Derivation:
     return Derivation(names, transfer, sp.expand(num), sp.expand(den), gain, on - od, tuple(fn + fd))
 
 
+@cache
 def derive(stage) -> Derivation:
-    """Derive (once per topology, cached) the factored symbolic transfer of a stage.
+    """Derive (once per topology, cached on the frozen stage) the factored symbolic transfer of a stage.
 
     Parameters
     ----------

@@ -335,6 +335,24 @@ class Design:
 
         return snap_design(self, series, **kw)
 
+    def spread(self, samples: int = 10000, *, seed: int = 1, **kw: Any):
+        """Monte Carlo spread over the ``tolerances`` section; see :func:`loopcraft.tolerance.monte_carlo`."""
+        from .tolerance import monte_carlo
+
+        return monte_carlo(self, samples, seed=seed, **kw)
+
+    def worst_case(self, **kw: Any):
+        """Worst-case corner search over the tolerances; see :func:`loopcraft.tolerance.worst_case`."""
+        from .tolerance import worst_case
+
+        return worst_case(self, **kw)
+
+    def check(self, *, spread: bool = True, seed: int = 1):
+        """Check the design against its ``spec`` section; see :func:`loopcraft.spec.check`."""
+        from .spec import check
+
+        return check(self, spread=spread, seed=seed)
+
     def sensitivity(self):
         """Normalized sensitivities ∂ln(corner)/∂ln(component); see :mod:`loopcraft.sensitivity`."""
         from .sensitivity import sensitivity

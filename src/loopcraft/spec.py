@@ -1,0 +1,599 @@
+"""Design specifications: the ``spec`` section of a design file, and the check against it.
+
+The section, every key optional::
+
+    "spec": {
+      "phase_margin_min_deg": 45,          # worst phase margin over all crossovers, degrees
+      "gain_margin_min_db": 6,             # worst gain margin over all phase crossovers, dB
+      "crossover_hz": [20e3, 40e3],        # the highest loop crossover, Hz
+      "corners": {"ωz1": [4e3, 6e3],       # corners of the factored form, Hz
+                  "Qp1": [0.5, 0.9]},      # Q of a second-order factor (plain number)
+      "dc_gain_db": [80, 120],             # |H(0)| of the stage as built, dB
+      "yield_min": 0.99,                   # Monte Carlo yield over the tolerances
+      "samples": 2000                      # samples for the yield (default 2000)
+    }
+
+Definitions (the same at nominal values and per Monte Carlo sample):
+
+* **phase margin** — the minimum of ``180° + ∠L`` over *every* gain crossover
+  ``|L| = 1`` in the analysed band (``L`` as in :mod:`loopcraft.loop`);
+* **gain margin** — the minimum of ``-20·log10|L|`` over every phase crossover
+  ``∠L = -180° (mod 360°)``; when the phase never reaches -180° in the band
+  the gain margin is unbounded there and the item passes, saying so;
+* **crossover** — the *highest* gain crossover (where the loop finally runs
+  out of gain: its bandwidth);
+* **corners** — labels as in :class:`loopcraft.factored.FactoredForm` (zeros then
+  poles, each numbered by increasing frequency at nominal values): ``ωz1``,
+  ``ωp2`` for real roots, ``ω0p1`` and ``Qp1`` for a second-order factor.
+  ASCII spellings ``wz1``, ``w0p1`` are accepted. ω ranges are in **Hz**
+  (f = ω/2π), Q ranges are plain numbers;
+* **DC gain** — ``20·log10|H(0)|`` of the stage *as built*: with the real
+  op-amp when the design has one (finite even for an integrator), else the
+  ideal stage (infinite for an integrator, which then fails any finite range);
+* **yield** — the fraction of Monte Carlo samples (the design's
+  ``tolerances``, :func:`loopcraft.tolerance.monte_carlo`, seeded) that meet
+  every other item.
+
+An item that cannot be evaluated (a margin without a plant, a corner label the
+design does not have, a yield without tolerances) fails, and its message says
+why; nothing passes silently.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from numbers import Real
+from typing import Any
+
+import numpy as np
+
+from .errors import ComponentValueError, DesignFileError, LoopcraftError
+from .values import format_value, parse_value
+
+__all__ = [
+    "Spec",
+    "SpecItem",
+    "SpecReport",
+    "parse_spec",
+    "validate_spec",
+    "canonical_label",
+    "nominal_corners",
+    "sample_pass",
+    "check",
+    "DEFAULT_SAMPLES",
+    "MAX_SAMPLES",
+]
+
+#: Monte Carlo samples for the yield when ``samples`` is not given.
+DEFAULT_SAMPLES = 2000
+
+#: Upper limit of ``samples`` (memory: samples × frequencies doubles are held).
+MAX_SAMPLES = 1_000_000
+
+_KEYS = ("phase_margin_min_deg", "gain_margin_min_db", "crossover_hz", "corners", "dc_gain_db",
+         "yield_min", "samples")
+
+_LABEL_RE = re.compile(r"(?P<kind>ω0|w0|ω|w|Q)(?P<role>[zp])(?P<n>[1-9][0-9]*)")
+
+
+# --------------------------------------------------------------------------- parsing
+
+
+@dataclass(frozen=True)
+class Spec:
+    """A parsed, validated ``spec`` section.
+
+    Parameters
+    ----------
+    phase_margin_min_deg : float or None
+        Minimum phase margin, degrees.
+    gain_margin_min_db : float or None
+        Minimum gain margin, dB.
+    crossover_hz : (float, float) or None
+        Allowed range of the highest loop crossover, Hz.
+    corners : mapping of str to (float, float)
+        Canonical corner label (``"ωz1"``, ``"ω0p1"``, ``"Qp1"``) to its allowed
+        range: Hz for ω labels, plain numbers for Q labels.
+    dc_gain_db : (float, float) or None
+        Allowed range of the stage's DC gain, dB.
+    yield_min : float or None
+        Minimum Monte Carlo yield, a fraction in (0, 1].
+    samples : int
+        Monte Carlo samples for the yield.
+    """
+
+    phase_margin_min_deg: float | None = None
+    gain_margin_min_db: float | None = None
+    crossover_hz: tuple[float, float] | None = None
+    corners: Mapping[str, tuple[float, float]] = field(default_factory=dict)
+    dc_gain_db: tuple[float, float] | None = None
+    yield_min: float | None = None
+    samples: int = DEFAULT_SAMPLES
+
+    @property
+    def is_empty(self) -> bool:
+        """True when the spec has no item at all."""
+        return not self.item_names and self.yield_min is None
+
+    @property
+    def item_names(self) -> tuple[str, ...]:
+        """Names of the per-design items (the yield excluded), in report order."""
+        out: list[str] = []
+        if self.phase_margin_min_deg is not None:
+            out.append("phase_margin_min_deg")
+        if self.gain_margin_min_db is not None:
+            out.append("gain_margin_min_db")
+        if self.crossover_hz is not None:
+            out.append("crossover_hz")
+        out += [f"corners.{k}" for k in self.corners]
+        if self.dc_gain_db is not None:
+            out.append("dc_gain_db")
+        return tuple(out)
+
+
+def canonical_label(label: str) -> str | None:
+    """The canonical corner label (``"wz1"`` → ``"ωz1"``, ``"w0p1"`` → ``"ω0p1"``), or None if malformed."""
+    if not isinstance(label, str):
+        return None
+    m = _LABEL_RE.fullmatch(label)
+    if m is None:
+        return None
+    kind = {"w": "ω", "w0": "ω0"}.get(m["kind"], m["kind"])
+    return f"{kind}{m['role']}{m['n']}"
+
+
+def _number(value: Any, key_path: str, what: str) -> float:
+    if isinstance(value, bool) or not isinstance(value, Real):
+        raise DesignFileError(f"{what} must be a number (got {value!r})", key_path)
+    x = float(value)
+    if not math.isfinite(x):
+        raise DesignFileError(f"{what} must be finite (got {value!r})", key_path)
+    return x
+
+
+def _frequency(value: Any, key_path: str) -> float:
+    """A frequency in Hz: a number, or engineering text such as ``"20k"`` or ``"20 kHz"``."""
+    if isinstance(value, str):
+        text = re.sub(r"\s*Hz\s*$", "", value)
+        try:
+            return parse_value(text, name=key_path)
+        except ComponentValueError as err:
+            raise DesignFileError(f"expected a frequency in Hz such as 20e3 or '20k' (got {value!r})",
+                                  key_path) from err
+    x = _number(value, key_path, "a frequency (Hz)")
+    if x <= 0:
+        raise DesignFileError(f"a frequency must be > 0 Hz (got {value!r})", key_path)
+    return x
+
+
+def _range(value: Any, key_path: str, *, kind: str) -> tuple[float, float]:
+    """``[min, max]``; kind "hz" (positive frequencies), "positive" or "real"."""
+    if not isinstance(value, list | tuple) or len(value) != 2:
+        raise DesignFileError(f"expected a range [min, max] of two numbers (got {value!r})", key_path)
+    if kind == "hz":
+        lo, hi = (_frequency(v, f"{key_path}[{i}]") for i, v in enumerate(value))
+    else:
+        lo, hi = (_number(v, f"{key_path}[{i}]", "a range bound") for i, v in enumerate(value))
+        if kind == "positive":
+            for i, x in enumerate((lo, hi)):
+                if x <= 0:
+                    raise DesignFileError(f"a Q bound must be > 0 (got {value[i]!r})", f"{key_path}[{i}]")
+    if lo > hi:
+        raise DesignFileError(f"range minimum {value[0]!r} is above its maximum {value[1]!r} "
+                              "(expected [min, max] with min <= max)", key_path)
+    return (lo, hi)
+
+
+def parse_spec(spec: Any, key_path: str = "spec") -> Spec:
+    """Parse and validate a ``spec`` section.
+
+    Parameters
+    ----------
+    spec : mapping
+        The section as read from the design file (see the module docstring).
+    key_path : str
+        Where the section sits, for error messages (``"spec"``).
+
+    Returns
+    -------
+    Spec
+
+    Raises
+    ------
+    DesignFileError
+        Unknown keys, non-numbers, ranges with min > max, frequencies <= 0,
+        malformed or repeated corner labels, a yield outside (0, 1], a sample
+        count that is not an integer in 1 … 1 000 000, ``samples`` without
+        ``yield_min``, or ``yield_min`` with nothing else to check; the key
+        path names the offending key (``"spec.corners.ωz1"``).
+    """
+    if isinstance(spec, Spec):
+        return spec
+    if not isinstance(spec, Mapping):
+        raise DesignFileError(f"expected an object of spec items (got {type(spec).__name__} {spec!r})", key_path)
+    for k in spec:
+        if k not in _KEYS:
+            raise DesignFileError(f"unknown key {k!r} (allowed: {', '.join(_KEYS)})", f"{key_path}.{k}")
+    kw: dict[str, Any] = {}
+    for k in ("phase_margin_min_deg", "gain_margin_min_db"):
+        if k in spec:
+            kw[k] = _number(spec[k], f"{key_path}.{k}", k)
+    if "crossover_hz" in spec:
+        kw["crossover_hz"] = _range(spec["crossover_hz"], f"{key_path}.crossover_hz", kind="hz")
+    if "dc_gain_db" in spec:
+        kw["dc_gain_db"] = _range(spec["dc_gain_db"], f"{key_path}.dc_gain_db", kind="real")
+    if "corners" in spec:
+        raw = spec["corners"]
+        where = f"{key_path}.corners"
+        if not isinstance(raw, Mapping):
+            raise DesignFileError(f"expected an object of corner label: [min, max] (got {raw!r})", where)
+        corners: dict[str, tuple[float, float]] = {}
+        first_key: dict[str, str] = {}
+        for label, rng in raw.items():
+            canon = canonical_label(label)
+            if canon is None:
+                raise DesignFileError(
+                    f"corner label {label!r} is not of the factored form's kind (expected e.g. 'ωz1', 'ωp2', "
+                    "'ω0p1', 'Qp1' or the ASCII 'wz1', 'w0p1')", f"{where}.{label}")
+            if canon in corners:
+                raise DesignFileError(f"corner {canon} is given twice (as {first_key[canon]!r} and {label!r})",
+                                      f"{where}.{label}")
+            corners[canon] = _range(rng, f"{where}.{label}", kind="positive" if canon[0] == "Q" else "hz")
+            first_key[canon] = label
+        kw["corners"] = corners
+    if "yield_min" in spec:
+        y = _number(spec["yield_min"], f"{key_path}.yield_min", "yield_min")
+        if not 0.0 < y <= 1.0:
+            raise DesignFileError(f"yield_min must be a fraction in (0, 1] (got {spec['yield_min']!r}; "
+                                  "write 0.99 for 99 %)", f"{key_path}.yield_min")
+        kw["yield_min"] = y
+    if "samples" in spec:
+        n = spec["samples"]
+        if isinstance(n, bool) or not isinstance(n, int) or not 1 <= n <= MAX_SAMPLES:
+            raise DesignFileError(f"samples must be an integer in 1 … {MAX_SAMPLES} (got {n!r})",
+                                  f"{key_path}.samples")
+        if "yield_min" not in spec:
+            raise DesignFileError("samples only applies to the yield check; add yield_min or remove samples",
+                                  f"{key_path}.samples")
+        kw["samples"] = n
+    out = Spec(**kw)
+    if out.yield_min is not None and not out.item_names:
+        raise DesignFileError("yield_min needs at least one other spec item to count samples against",
+                              f"{key_path}.yield_min")
+    return out
+
+
+def validate_spec(spec: Any, key_path: str = "spec") -> None:
+    """Validate a ``spec`` section; see :func:`parse_spec` for the errors raised."""
+    parse_spec(spec, key_path)
+
+
+# --------------------------------------------------------------------------- per-sample evaluation
+
+
+def sample_pass(spec: Spec, quantities: Mapping[str, Any], n: int) -> dict[str, np.ndarray]:
+    """Which samples meet each spec item (the yield item excluded).
+
+    Parameters
+    ----------
+    spec : Spec
+    quantities : mapping
+        Per-sample arrays of length ``n``: ``"phase_margin_deg"``,
+        ``"gain_margin_db"`` (+inf where the phase never reaches -180°),
+        ``"crossover_hz"`` (NaN where no crossover; these three are None without
+        a plant), ``"dc_gain_db"``, and ``"corners"``: a mapping of canonical
+        label to Hz (ω labels) or Q.
+    n : int
+        Number of samples.
+
+    Returns
+    -------
+    dict of str to ndarray of bool
+        Item name (as in :attr:`Spec.item_names`) to a per-sample pass mask. An
+        item that cannot be evaluated (no plant, unknown corner) fails for every sample.
+    """
+    none = np.zeros(n, dtype=bool)
+    out: dict[str, np.ndarray] = {}
+    pm, gm, fc = (quantities.get(k) for k in ("phase_margin_deg", "gain_margin_db", "crossover_hz"))
+    with np.errstate(invalid="ignore"):
+        if spec.phase_margin_min_deg is not None:
+            out["phase_margin_min_deg"] = none if pm is None else np.asarray(pm) >= spec.phase_margin_min_deg
+        if spec.gain_margin_min_db is not None:
+            out["gain_margin_min_db"] = none if gm is None else np.asarray(gm) >= spec.gain_margin_min_db
+        if spec.crossover_hz is not None:
+            lo, hi = spec.crossover_hz
+            out["crossover_hz"] = none if fc is None else (np.asarray(fc) >= lo) & (np.asarray(fc) <= hi)
+        corners = quantities.get("corners", {})
+        for label, (lo, hi) in spec.corners.items():
+            v = corners.get(label)
+            out[f"corners.{label}"] = none if v is None else (np.asarray(v) >= lo) & (np.asarray(v) <= hi)
+        if spec.dc_gain_db is not None:
+            lo, hi = spec.dc_gain_db
+            v = np.asarray(quantities["dc_gain_db"])
+            out["dc_gain_db"] = (v >= lo) & (v <= hi)
+    return out
+
+
+# --------------------------------------------------------------------------- report
+
+
+@dataclass(frozen=True)
+class SpecItem:
+    """One checked spec item.
+
+    Parameters
+    ----------
+    name : str
+        The spec key (``"phase_margin_min_deg"``, ``"corners.ωz1"``, ``"yield_min"``).
+    required : str
+        The requirement in words (``"≥ 45°"``, ``"20 kHz … 40 kHz"``).
+    actual : float or None
+        The value found (degrees, dB, Hz, Q or a yield fraction); None when it
+        could not be evaluated.
+    passed : bool
+    message : str
+        The value in words, or why the item could not be evaluated.
+    """
+
+    name: str
+    required: str
+    actual: float | None
+    passed: bool
+    message: str
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready form (non-finite numbers become None)."""
+        a = self.actual
+        return {"name": self.name, "required": self.required,
+                "actual": a if a is not None and math.isfinite(a) else None,
+                "passed": self.passed, "message": self.message}
+
+
+@dataclass(frozen=True)
+class SpecReport:
+    """The result of :func:`check`.
+
+    Parameters
+    ----------
+    items : tuple of SpecItem
+    has_spec : bool
+        False when the design has no ``spec`` section (the report then has no
+        items and passes).
+    notes : tuple of str
+        What was not checked and why (e.g. the yield with ``spread=False``).
+    """
+
+    items: tuple[SpecItem, ...]
+    has_spec: bool = True
+    notes: tuple[str, ...] = ()
+
+    @property
+    def passed(self) -> bool:
+        """True when every checked item passed (vacuously true with no items)."""
+        return all(i.passed for i in self.items)
+
+    @property
+    def failures(self) -> tuple[SpecItem, ...]:
+        """The items that failed."""
+        return tuple(i for i in self.items if not i.passed)
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready form: ``{"passed", "has_spec", "items": [...], "failures": [names], "notes"}``."""
+        return {"passed": self.passed, "has_spec": self.has_spec,
+                "items": [i.to_dict() for i in self.items],
+                "failures": [i.name for i in self.failures], "notes": list(self.notes)}
+
+    def __str__(self) -> str:
+        if not self.has_spec:
+            return "Spec check: PASS (the design has no spec section; nothing to check)"
+        head = (f"Spec check: {'PASS' if self.passed else 'FAIL'} "
+                f"({len(self.items)} items, {len(self.failures)} failed)")
+        rows = [("item", "required", "actual", "result")]
+        rows += [(i.name, i.required, _actual_text(i), "pass" if i.passed else "FAIL") for i in self.items]
+        widths = [max(len(r[c]) for r in rows) for c in range(4)]
+        lines = [head]
+        for r in rows:
+            lines.append("  " + "  ".join(r[c].ljust(widths[c]) for c in range(4)).rstrip())
+        for i in self.items:
+            lines.append(f"  - {i.name}: {i.message}")
+        lines += [f"  note: {n}" for n in self.notes]
+        return "\n".join(lines)
+
+
+def _actual_text(item: SpecItem) -> str:
+    a = item.actual
+    if a is None:
+        return "—"
+    if item.name == "yield_min":
+        return f"{100 * a:.2f} %"
+    if item.name in ("crossover_hz",) or (item.name.startswith("corners.ω")):
+        return format_value(a, "Hz", digits=4)
+    if item.name == "phase_margin_min_deg":
+        return f"{a:.2f}°"
+    if item.name in ("gain_margin_min_db", "dc_gain_db"):
+        return f"{a:.2f} dB"
+    return f"{a:.4g}"
+
+
+def _hz_range(r: tuple[float, float]) -> str:
+    return f"{format_value(r[0], 'Hz', digits=4)} … {format_value(r[1], 'Hz', digits=4)}"
+
+
+# --------------------------------------------------------------------------- nominal check
+
+
+def nominal_corners(design) -> dict[str, float]:
+    """Corner label → value at nominal values: Hz for ω labels, Q for Q labels (FactoredForm numbering)."""
+    out: dict[str, float] = {}
+    counts = {"zero": 0, "pole": 0}
+    for c in design.factored().corners:
+        counts[c.role] += 1
+        tag = ("z" if c.role == "zero" else "p") + str(counts[c.role])
+        if c.order == 1:
+            out[f"ω{tag}"] = c.f_hz
+        else:
+            out[f"ω0{tag}"] = c.f_hz
+            out[f"Q{tag}"] = float(c.q)
+    return out
+
+
+def _stage_dc_gain_db(analysis) -> float:
+    fn = analysis.actual.factored if analysis.actual is not None else analysis.factored
+    if fn.origin_order < 0:
+        return math.inf
+    if fn.origin_order > 0:
+        return -math.inf
+    return 20.0 * math.log10(abs(fn.gain))
+
+
+def check(design, *, spread: bool = True, seed: int = 1) -> SpecReport:
+    """Check a design against its ``spec`` section.
+
+    Parameters
+    ----------
+    design : Design
+        The design (its ``spec``, ``tolerances``, op-amp and plant sections are used).
+    spread : bool
+        Estimate the Monte Carlo yield when the spec has ``yield_min``; with
+        False the yield is not checked and the report notes so.
+    seed : int
+        Seed of the Monte Carlo draw (numpy ``default_rng``), so the yield is reproducible.
+
+    Returns
+    -------
+    SpecReport
+        Items evaluated at nominal values on the design's default analysis grid
+        (:class:`loopcraft.analysis.Analyzer`), definitions as in the module
+        docstring; a design without a spec section gives an empty, passing report.
+
+    Raises
+    ------
+    DesignFileError
+        The design's ``spec`` section is malformed (key path given).
+    """
+    if design.spec is None:
+        return SpecReport((), has_spec=False)
+    sp = parse_spec(design.spec, "spec")
+    items: list[SpecItem] = []
+    notes: list[str] = []
+    try:
+        analysis = design.analyze()
+        analysis_error = None
+    except LoopcraftError as err:
+        analysis, analysis_error = None, f"the nominal analysis failed: {err}"
+
+    def unavailable(name: str, required: str, why: str) -> None:
+        items.append(SpecItem(name, required, None, False, why))
+
+    margins = None
+    band = ""
+    loop_why = analysis_error
+    if analysis is not None:
+        f = analysis.f_hz
+        band = f"{format_value(float(f[0]), 'Hz')} … {format_value(float(f[-1]), 'Hz')}"
+        if analysis.loop is None:
+            loop_why = "the design has no plant, so there is no loop gain (add a 'plant' section)"
+        else:
+            margins = analysis.loop.margins
+
+    if sp.phase_margin_min_deg is not None:
+        req = f"≥ {sp.phase_margin_min_deg:g}°"
+        if margins is None:
+            unavailable("phase_margin_min_deg", req, f"cannot evaluate the phase margin: {loop_why}")
+        elif not margins.crossovers:
+            unavailable("phase_margin_min_deg", req, f"the loop gain never crosses 0 dB in the analysed band {band}")
+        else:
+            worst = min(margins.crossovers, key=lambda c: c.phase_margin_deg)
+            ok = worst.phase_margin_deg >= sp.phase_margin_min_deg
+            more = f" (worst of {len(margins.crossovers)} crossovers)" if len(margins.crossovers) > 1 else ""
+            items.append(SpecItem("phase_margin_min_deg", req, worst.phase_margin_deg, ok,
+                                  f"phase margin {worst.phase_margin_deg:.3f}° at "
+                                  f"{format_value(worst.f_hz, 'Hz', digits=4)}{more}"))
+    if sp.gain_margin_min_db is not None:
+        req = f"≥ {sp.gain_margin_min_db:g} dB"
+        if margins is None:
+            unavailable("gain_margin_min_db", req, f"cannot evaluate the gain margin: {loop_why}")
+        elif not margins.gain_margins:
+            items.append(SpecItem("gain_margin_min_db", req, math.inf, True,
+                                  f"the loop phase never reaches -180° in the analysed band {band}: "
+                                  "the gain margin is unbounded there"))
+        else:
+            worst_g = min(margins.gain_margins, key=lambda g: g.gain_margin_db)
+            ok = worst_g.gain_margin_db >= sp.gain_margin_min_db
+            more = f" (worst of {len(margins.gain_margins)} phase crossovers)" if len(margins.gain_margins) > 1 else ""
+            items.append(SpecItem("gain_margin_min_db", req, worst_g.gain_margin_db, ok,
+                                  f"gain margin {worst_g.gain_margin_db:.3f} dB at "
+                                  f"{format_value(worst_g.f_hz, 'Hz', digits=4)}{more}"))
+    if sp.crossover_hz is not None:
+        req = _hz_range(sp.crossover_hz)
+        if margins is None:
+            unavailable("crossover_hz", req, f"cannot evaluate the crossover: {loop_why}")
+        elif not margins.crossovers:
+            unavailable("crossover_hz", req, f"the loop gain never crosses 0 dB in the analysed band {band}")
+        else:
+            fc = margins.crossovers[-1].f_hz
+            lo, hi = sp.crossover_hz
+            more = ""
+            if len(margins.crossovers) > 1:
+                more = " (the highest of " + ", ".join(format_value(c.f_hz, "Hz", digits=4)
+                                                      for c in margins.crossovers) + ")"
+            items.append(SpecItem("crossover_hz", req, fc, lo <= fc <= hi,
+                                  f"crossover {format_value(fc, 'Hz', digits=6)}{more}"))
+    if sp.corners:
+        try:
+            corners = nominal_corners(design)
+            corner_why = None
+        except LoopcraftError as err:
+            corners, corner_why = {}, f"the factored form could not be evaluated: {err}"
+        for label, (lo, hi) in sp.corners.items():
+            name = f"corners.{label}"
+            is_q = label.startswith("Q")
+            req = f"{lo:g} … {hi:g}" if is_q else _hz_range((lo, hi))
+            if corner_why is not None:
+                unavailable(name, req, corner_why)
+            elif label not in corners:
+                have = ", ".join(corners) or "none"
+                unavailable(name, req, f"the design has no corner {label} (its corners: {have})")
+            else:
+                v = corners[label]
+                text = f"Q = {v:.5g}" if is_q else f"{label} = {format_value(v, 'Hz', digits=6)}"
+                items.append(SpecItem(name, req, v, lo <= v <= hi, text))
+    if sp.dc_gain_db is not None:
+        lo, hi = sp.dc_gain_db
+        req = f"{lo:g} dB … {hi:g} dB"
+        if analysis is None:
+            unavailable("dc_gain_db", req, f"cannot evaluate the DC gain: {analysis_error}")
+        else:
+            g = _stage_dc_gain_db(analysis)
+            what = "with the real op-amp" if analysis.actual is not None else "ideal op-amp"
+            if math.isinf(g):
+                why = ("a pole at the origin makes it infinite" if g > 0 else "a zero at the origin makes it zero")
+                items.append(SpecItem("dc_gain_db", req, g, False, f"DC gain of the stage ({what}): {why}"))
+            else:
+                items.append(SpecItem("dc_gain_db", req, g, lo <= g <= hi,
+                                      f"DC gain of the stage ({what}) {g:.3f} dB"))
+    if sp.yield_min is not None:
+        req = f"≥ {100 * sp.yield_min:g} % of {sp.samples} samples"
+        if not spread:
+            notes.append("yield_min was not checked (spread=False)")
+        elif design.tolerances is None:
+            unavailable("yield_min", req, "the design has no 'tolerances' section, so there is nothing to spread")
+        else:
+            from .tolerance import monte_carlo
+
+            try:
+                mc = monte_carlo(design, sp.samples, seed=seed, spec=sp)
+            except LoopcraftError as err:
+                unavailable("yield_min", req, f"the Monte Carlo run failed: {err}")
+            else:
+                y = float(mc.yield_fraction)
+                se = math.sqrt(max(y * (1 - y), 0.0) / sp.samples)
+                worst = sorted((mc.item_yield or {}).items(), key=lambda kv: kv[1])[:3]
+                detail = ", ".join(f"{k} {100 * v:.1f} %" for k, v in worst)
+                items.append(SpecItem("yield_min", req, y, y >= sp.yield_min,
+                                      f"yield {100 * y:.2f} % ± {100 * se:.2f} % (1 standard error, seed {seed}); "
+                                      f"lowest per item: {detail}"))
+    return SpecReport(tuple(items), True, tuple(notes))
