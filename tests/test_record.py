@@ -83,7 +83,10 @@ def test_html_has_title_values_formulas_and_verdict(converter_record):
     assert "Bench review pending." in page
     assert "2030-05-17T09:30:00+00:00" in page
     assert f"loopcraft {loopcraft.__version__}" in page
-    assert "\\[" in page and "\\]" in page  # MathJax display delimiters, as FactoredForm renders
+    # In a notebook the formula goes to MathJax; a standalone page has no MathJax, so it carries
+    # the formula as a rendered image with the LaTeX as its alt text.
+    assert "\\[" in converter_record._repr_html_() and "\\]" in converter_record._repr_html_()
+    assert f'alt="{html.escape(converter_record.design.factored().symbolic_latex())}"' in page
 
 
 def test_no_external_resources(converter_record):
@@ -183,8 +186,10 @@ def _decode(png: bytes) -> np.ndarray:
 @pytest.mark.parametrize("which", ["converter_record", "filter_record"])
 def test_two_real_png_figures_in_html_and_markdown(which, request):
     rec = request.getfixturevalue(which)
-    for imgs in (html_images(rec.to_html()), md_images(rec.to_markdown()), html_images(rec._repr_html_())):
-        assert len(imgs) == 2
+    for imgs, n_eq in ((html_images(rec.to_html()), 1), (md_images(rec.to_markdown()), 1),
+                       (html_images(rec._repr_html_()), 0)):
+        assert len(imgs) == 2 + n_eq  # the formula image where no MathJax runs, then the two figures
+        imgs = imgs[n_eq:]
         assert imgs == [rec.bode_png, rec.pole_zero_png]
         for png in imgs:
             assert png[:8] == PNG_SIGNATURE

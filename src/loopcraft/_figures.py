@@ -65,6 +65,22 @@ def _png(fig, canvas) -> bytes:
     return buf.getvalue()
 
 
+def equation_png(latex: str, *, fontsize: float = 15.0) -> bytes:
+    """A LaTeX formula rendered by matplotlib's mathtext (no TeX install), as PNG bytes.
+
+    Used where no MathJax runs: standalone HTML pages and Markdown files.
+    """
+    figure_cls, canvas_cls, _ = _matplotlib()
+    fig = figure_cls(figsize=(0.1, 0.1))
+    canvas = canvas_cls(fig)
+    fig.text(0.0, 0.0, f"${latex}$", fontsize=fontsize)
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=120, bbox_inches="tight", pad_inches=0.08, facecolor="white",
+                metadata={"Software": None})
+    del canvas
+    return buf.getvalue()
+
+
 def _limits(curves: Sequence[np.ndarray], floor: float, ceiling: float, pad: float) -> tuple[float, float]:
     data = np.concatenate([np.asarray(c)[np.isfinite(c)] for c in curves]) if curves else np.zeros(1)
     lo = max(float(np.min(data)), floor)

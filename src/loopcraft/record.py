@@ -157,7 +157,7 @@ class DesignRecord:
                 ("pole-zero", "Poles (×) and zeros (○) in the s-plane (rad/s)", self.pole_zero_png)]
 
     # -- HTML ----------------------------------------------------------------
-    def _html_body(self) -> str:
+    def _html_body(self, *, standalone: bool = False) -> str:
         d = self.design
         esc = html.escape
         parts: list[str] = ['<div class="lc-record">']
@@ -180,7 +180,18 @@ class DesignRecord:
                 parts.append(f'<p class="lc-notes"><em>Design notes:</em> {_html_lines(d.notes)}</p>')
         parts.append("<h2>Transfer function</h2>")
         parts.append(f"<p>Stage: <code>{esc(_stage_text(d))}</code></p>")
-        parts.append(d.factored()._repr_html_())
+        if standalone:
+            # No MathJax in a standalone page: the formula as an image, the corners as a table.
+            from ._figures import equation_png
+
+            ff = d.factored()
+            eq = base64.b64encode(equation_png(ff.symbolic_latex())).decode("ascii")
+            html_form = ff._repr_html_()
+            table = html_form[html_form.index("<p>K ="):]
+            parts.append(f'<div class="lc-factored"><img alt="{esc(ff.symbolic_latex())}" '
+                         f'src="data:image/png;base64,{eq}">{table}')
+        else:
+            parts.append(d.factored()._repr_html_())
         parts.append("<h2>Component values</h2>")
         rows = "".join(
             f"<tr><td>{esc(v.name)}</td><td>{esc(v.formatted)}</td><td><code>{esc(v.given)}</code></td>"
@@ -254,7 +265,7 @@ class DesignRecord:
             "<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n"
             f"<meta name=\"generator\" content=\"loopcraft {html.escape(self.version)}\">\n"
             f"<title>{html.escape(self.title)}</title>\n<style>{_CSS}</style>\n</head>\n<body>\n"
-            f"{self._html_body()}\n</body>\n</html>\n"
+            f"{self._html_body(standalone=True)}\n</body>\n</html>\n"
         )
 
     # -- Markdown ------------------------------------------------------------
@@ -275,7 +286,11 @@ class DesignRecord:
                 out += [_md_text(self.notes), ""]
             if d.notes:
                 out += [f"*Design notes:* {_md_text(d.notes)}", ""]
-        out += ["## Transfer function", "", f"Stage: `{_stage_text(d)}`", "", "$$", ff.symbolic_latex(), "$$", ""]
+        from ._figures import equation_png
+
+        eq = base64.b64encode(equation_png(ff.symbolic_latex())).decode("ascii")
+        out += ["## Transfer function", "", f"Stage: `{_stage_text(d)}`", "", "$$", ff.symbolic_latex(), "$$", "",
+                f"![H(s)](data:image/png;base64,{eq})", ""]
         out += [f"K = `{ff.gain_formula}` = {ff.gain:.6g}", ""]
         rows = [("corner", "formula (rad/s)", "value")]
         rows += [(name, formula, value) for name, formula, value in _corner_rows(ff)]
