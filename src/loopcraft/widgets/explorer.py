@@ -1,0 +1,511 @@
+"""The stage explorer: one widget to pick a stage, drag its parts and watch every view follow.
+
+Data flow is one way. Each component slider (SI base units) feeds a single
+observer, :meth:`Explorer._on_slider`, which
+
+1. evaluates the design on the compiled fast path
+   (:meth:`loopcraft.analysis.Analyzer.update`: no derivation, no sympy),
+   plus the cheap compiled sensitivities for the drag highlight;
+2. computes every view's data (Bode curves, annotations, pole-zero markers,
+   corner table) without touching a widget;
+3. assigns it, each mark inside its own ``hold_sync()``, so each mark gets one
+   update message;
+4. rewrites the moved part's entry and readout under a guard (no echo).
+
+If step 1 or 2 fails the error is shown and nothing on screen changes. The
+frequency grid is fixed per design (re-derived on topology, design, op-amp or
+plant change only), so the axes do not jump while sliders move.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import html
+import os
+from collections.abc import Iterator, Mapping
+from contextlib import contextmanager
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import ipywidgets as widgets
+import numpy as np
+
+from ..amplifier import AmplifierLoop
+from ..analysis import Analysis, Analyzer
+from ..derivation import Derivation
+from ..design import Design, load
+from ..errors import AnalysisError, LoopcraftError, TopologyError
+from ..opamp import OpAmp
+from ..plant import Plant
+from ..sensitivity import Sensitivity, sensitivity
+from ..topologies import TOPOLOGIES, topology
+from ._axes import view_grid_hz
+from ._bode import BodeView
+from ._controls import ComponentPanel, SnapLogSlider
+from ._fields import ErrorNote
+from ._formula import FormulaView
+from ._panels import OpAmpPanel, PlantPanel
+from ._pzmap import PoleZeroView
+from ._sources import FileLoader, NetworkForm
+from ._theme import COLORS, CSS_CLASS, FONT_STACK
+
+__all__ = ["Explorer", "OWN_NETWORK", "LOADED_DESIGN", "SETTLE_S"]
+
+#: Seconds a slider must rest before the op-amp loop annotation is refreshed (in a kernel).
+SETTLE_S = 0.25
+
+#: Picker entries besides the library keys.
+OWN_NETWORK = "__own__"
+LOADED_DESIGN = "__loaded__"
+
+
+@dataclass(frozen=True)
+class _DerivedValues:
+    """The two attributes :func:`loopcraft.sensitivity.sensitivity` reads from a design.
+
+    ``Design.derivation`` re-runs the stage's symbolic ``transfer_expr()`` (a
+    sympy ``cancel``, ~10 ms) before its cache lookup, so the explorer keeps
+    the derivation once per design and hands this holder to ``sensitivity``.
+    """
+
+    derivation: Derivation
+    values: Mapping[str, float]
+
+
+def _analyzer(design: Design) -> Analyzer:
+    """The Analyzer of a design on the explorer's own fixed grid (see :func:`loopcraft.widgets._axes.view_band_hz`)."""
+    probe = Analyzer(design, f_hz=np.array([1.0, 10.0])).update(design.values)
+    extra: list[float] = []
+    if design.opamp is not None and not design.opamp.is_ideal:
+        extra.append(design.opamp.gbw_hz)
+        amp = probe.actual.amplifier_loop if probe.actual is not None else None
+        if amp is not None and amp.crossover_hz is not None:
+            extra.append(amp.crossover_hz)
+    if probe.loop is not None:
+        extra += [c.f_hz for c in probe.loop.margins.crossovers]
+    plant = design.plant.factored() if design.plant is not None else None
+    return Analyzer(design, f_hz=view_grid_hz(probe.factored, plant, tuple(extra)))
+
+
+def _resolve(source: Design | str | os.PathLike[str]) -> tuple[Design, str]:
+    """A design and its picker key from a Design, a topology key or a design-file path."""
+    if isinstance(source, Design):
+        return source, LOADED_DESIGN
+    if isinstance(source, str) and source in TOPOLOGIES:
+        return topology(source).design(), source
+    if isinstance(source, str | os.PathLike):
+        p = Path(source)
+        if p.suffix.lower() == ".json" or p.exists():
+            return load(p), LOADED_DESIGN
+        raise TopologyError(
+            f"{str(source)!r} is neither a library topology (known: {', '.join(TOPOLOGIES)}) "
+            "nor an existing design file"
+        )
+    raise TopologyError(
+        f"Explorer needs a Design, a topology key or a design-file path (got {type(source).__name__} {source!r})"
+    )
+
+
+class Explorer(widgets.VBox):
+    """Interactive explorer of an op-amp stage: sliders, Bode, pole-zero map, formulas, loop margins.
+
+    Parameters
+    ----------
+    source : Design, str or path-like
+        A :class:`~loopcraft.design.Design`, a library topology key
+        (``"type3"``; see :data:`loopcraft.TOPOLOGIES`) or the path of a
+        design file.
+
+    Attributes
+    ----------
+    sliders : mapping of str to ipywidgets.FloatLogSlider
+        One slider per component; ``.value`` is in SI base units (Ω, F, H).
+        Setting it from Python updates every view.
+    picker : ipywidgets.Dropdown
+        The topology picker (library keys, "my own network", "loaded design").
+    bode : BodeView
+        ``bode.mag_fig`` (class ``lc-bode-mag``), ``bode.phase_fig`` (``lc-bode-phase``).
+    pzmap : PoleZeroView
+        ``pzmap.fig`` (class ``lc-pzmap``).
+    formula : FormulaView
+    opamp_panel : OpAmpPanel
+    plant_panel : PlantPanel
+    network_form : NetworkForm
+    file_loader : FileLoader
+    status : ErrorNote
+        Errors of the last update (e.g. a stage that degenerates at these values).
+
+    Raises
+    ------
+    TopologyError
+        ``source`` is neither a Design, a library key nor a design file.
+    DesignFileError
+        The design file does not load.
+
+    Examples
+    --------
+    >>> import loopcraft
+    >>> ex = loopcraft.Explorer("type3")          # doctest: +SKIP
+    >>> ex.sliders["R2"].value = 33e3             # doctest: +SKIP
+    >>> ex.view_state()["poles_rad_s"]            # doctest: +SKIP
+    """
+
+    def __init__(self, source: Design | str | os.PathLike[str] = "type3", **kwargs: Any) -> None:
+        design, key = _resolve(source)
+        super().__init__(**kwargs)
+        self.add_class(CSS_CLASS["root"])
+        self.layout.padding = "10px 12px"
+        self.layout.border = f"1px solid {COLORS['grid']}"
+        self.layout.width = "100%"
+        self._loaded: Design | None = design if key == LOADED_DESIGN else None
+        self._series = "off"
+        self._batch_depth = 0
+        self._pending: str | None | bool = False
+        self._dragged: str | None = None
+        self._quiet = False
+        self._analysis: Analysis | None = None
+        self._amp_shown: AmplifierLoop | None = None
+        self._amp_stale = False
+        self._settle_handle: asyncio.TimerHandle | None = None
+
+        self.title = widgets.HTML()
+        options = [(t.title, k) for k, t in TOPOLOGIES.items()]
+        options += [("my own network …", OWN_NETWORK), ("loaded design", LOADED_DESIGN)]
+        self.picker = widgets.Dropdown(options=options, value=key, description="stage",
+                                       style={"description_width": "40px"}, layout=widgets.Layout(width="330px"))
+        self.picker.add_class(CSS_CLASS["picker"])
+        self.description = widgets.HTML()
+        self.network_form = NetworkForm(self._use_own_network)
+        self.file_loader = FileLoader(self._use_loaded)
+        self.source_box = widgets.VBox(layout=widgets.Layout(display="none", margin="4px 0 6px 0",
+                                                             padding="6px 10px",
+                                                             border=f"1px solid {COLORS['grid']}"))
+        self.bode = BodeView()
+        self.pzmap = PoleZeroView()
+        self.formula = FormulaView()
+        self.opamp_panel = OpAmpPanel(design.opamp, self._use_opamp)
+        self.plant_panel = PlantPanel(design.plant, design.feedback_gain, self._use_plant)
+        self.sections = widgets.Accordion(children=[self.opamp_panel.box, self.plant_panel.box],
+                                          titles=("Op-amp", "Plant & feedback"), selected_index=None)
+        self.status = ErrorNote()
+        self.status.widget.add_class(CSS_CLASS["status"])
+        self.components_box = widgets.VBox(layout=widgets.Layout(width="100%"))
+
+        header = widgets.HBox([self.title, self.picker],
+                              layout=widgets.Layout(justify_content="space-between", align_items="center",
+                                                    width="100%"))
+        # Two columns: the controls and the s-plane (narrow) beside the Bode figures and formulas.
+        gap = widgets.Layout(height="12px")
+        left = widgets.VBox([self.components_box, self.sections, widgets.Box(layout=gap), self.pzmap.box],
+                            layout=widgets.Layout(flex="0 0 390px", width="390px", margin="0 16px 0 0"))
+        right = widgets.VBox([self.bode.box, widgets.Box(layout=gap), self.formula.box],
+                             layout=widgets.Layout(flex="1 1 auto", min_width="0"))
+        style = widgets.HTML(
+            f"<style>.{CSS_CLASS['root']} {{ font-family: {FONT_STACK}; }}"
+            f".{CSS_CLASS['root']} code {{ font-size: 12px; background: {COLORS['panel_bg']}; padding: 0 3px; "
+            "border-radius: 2px; }</style>")
+        self.children = [style, header, self.description, self.source_box, self.status.widget,
+                         widgets.HBox([left, right], layout=widgets.Layout(width="100%"))]
+        self.picker.observe(self._on_pick, names="value")
+        self._set_design(design, key)
+
+    # ------------------------------------------------------------------ public state
+    @property
+    def sliders(self) -> Mapping[str, SnapLogSlider]:
+        """Read-only map of component name to slider (values in Ω, F, H)."""
+        return self._panel.sliders
+
+    @property
+    def design(self) -> Design:
+        """The current design: topology, sections and the slider values.
+
+        Values left where they were keep their text as written (``"4k7"``);
+        moved ones are numbers in SI base units.
+        """
+        base = self._base
+        moved = {n: v for n, v in self._panel.values().items() if v != base.values[n]}
+        return base.with_values(moved) if moved else base
+
+    @property
+    def analysis(self) -> Analysis:
+        """The analysis on screen (the last good one).
+
+        Raises
+        ------
+        AnalysisError
+            Nothing could be analysed yet (the status line says why).
+        """
+        if self._analysis is None:
+            raise AnalysisError(f"nothing analysed yet: {self.status.message or 'no update has run'}")
+        return self._analysis
+
+    @property
+    def f_hz(self) -> np.ndarray:
+        """The fixed frequency grid of the current design, Hz."""
+        return self._analyzer.f_hz
+
+    def view_state(self) -> dict[str, Any]:
+        """The data shown now, read back from the marks and widgets (plain Python / numpy).
+
+        Returns
+        -------
+        dict
+            ``f_hz`` (Hz), ``exact_mag_db`` (dB), ``exact_phase_deg`` (°),
+            ``asymptote_mag_db``, ``asymptote_phase_deg``, ``poles_rad_s`` and
+            ``zeros_rad_s`` (complex, rad/s, repeated by multiplicity); with an
+            op-amp ``actual_mag_db``, ``actual_phase_deg`` and
+            ``amplifier_crossover_hz``; with a plant ``loop_mag_db``,
+            ``loop_phase_deg`` and ``loop_margins`` (``{"crossovers": [{"f_hz",
+            "phase_margin_deg"}], "gain_margins": [{"f_hz", "gain_margin_db"}]}``);
+            also ``values`` (SI base units), ``highlighted`` (corner labels) and
+            axis ranges.
+        """
+        out = self.bode.state()
+        out.update(self.pzmap.state())
+        out["values"] = self._panel.values()
+        out["highlighted"] = tuple(sorted(self.formula.highlighted))
+        out["dragged"] = self._dragged
+        return out
+
+    def select(self, key: str) -> None:
+        """Switch to a library topology (as the picker does)."""
+        self.picker.value = topology(key).key
+
+    # ------------------------------------------------------------------ design changes
+    def _set_design(self, design: Design, key: str) -> None:
+        """Install a design: controls, analyzer (grid), symbolic panels; then draw once.
+
+        Raises
+        ------
+        LoopcraftError
+            The design cannot be analysed; nothing has changed then.
+        """
+        analyzer = _analyzer(design)
+        first = analyzer.update(design.values)
+        derivation = design.derivation
+        self._base = design
+        self._analyzer = analyzer
+        self._derived = derivation
+        old = getattr(self, "_panel", None)
+        self._panel = ComponentPanel(design.values, self._on_snap, series=self._series)
+        self._slider_names = {id(c.slider): n for n, c in self._panel.controls.items()}
+        for c in self._panel.controls.values():
+            c.slider.observe(self._on_slider, names="value")
+        self.components_box.children = [self._panel.box]
+        if old is not None:
+            old.close()
+        self.formula.set_design(derivation, first.transfer)
+        self.bode.set_grid(analyzer.f_hz)
+        self.pzmap.set_design(first)
+        self._dragged = None
+        self._key = key
+        self._show_header(design, key)
+        self._set_picker(key)
+        self._redraw(None)
+
+    def _show_header(self, design: Design, key: str) -> None:
+        t = TOPOLOGIES.get(key)
+        name = t.title if t is not None else (design.title or "Loaded design")
+        self.title.value = (f'<div style="font-size:17px; font-weight:650; color:{COLORS["text"]}">'
+                            f'{html.escape(name)}</div>')
+        kind = {"inverting": "H = −Zf/Zi", "noninverting": "H = 1 + Zf/Zg", "circuit": "circuit by nodal analysis"}
+        st = design.stage.to_dict()
+        nets = ""
+        if st["kind"] == "inverting":
+            nets = f"Zi = <code>{html.escape(st['input'])}</code>, Zf = <code>{html.escape(st['feedback'])}</code>"
+        elif st["kind"] == "noninverting":
+            nets = f"Zg = <code>{html.escape(st['ground'])}</code>, Zf = <code>{html.escape(st['feedback'])}</code>"
+        text = t.description if t is not None else (design.notes or "")
+        scen = f" <i>Demo values: {html.escape(t.scenario)}.</i>" if t is not None else ""
+        self.description.value = (
+            f'<div style="font-size:12.5px; color:{COLORS["muted"]}; margin:0 0 6px 0">'
+            f"{html.escape(st['kind'])} stage, {kind.get(st['kind'], '')}{'; ' + nets if nets else ''}. "
+            f"{html.escape(text)}{scen}</div>")
+
+    def _set_picker(self, key: str) -> None:
+        self._quiet = True
+        try:
+            self.picker.value = key
+        finally:
+            self._quiet = False
+        self._show_source(key)
+
+    def _show_source(self, key: str) -> None:
+        if key == OWN_NETWORK:
+            self.source_box.children = [self.network_form.box]
+            self.source_box.layout.display = None
+        elif key == LOADED_DESIGN:
+            self.source_box.children = [self.file_loader.box]
+            self.source_box.layout.display = None
+        else:
+            self.source_box.layout.display = "none"
+
+    def _on_pick(self, change) -> None:
+        if self._quiet:
+            return
+        key = change["new"]
+        if key == OWN_NETWORK:
+            self.network_form.set_stage(self._base.stage.to_dict())
+            self._show_source(key)
+            return
+        if key == LOADED_DESIGN:
+            self._show_source(key)
+            if self._loaded is not None:
+                self._set_design(self._loaded, LOADED_DESIGN)
+            return
+        try:
+            self._set_design(self._with_current_sections(topology(key).design()), key)
+        except LoopcraftError as err:
+            self.status.show(f"cannot show {key!r} with the current op-amp and plant: {err}")
+            self._set_picker(self._key)
+
+    def _with_current_sections(self, design: Design) -> Design:
+        return design.with_sections(opamp=self.opamp_panel.current, plant=self.plant_panel.current,
+                                    feedback_gain=self.plant_panel.feedback_gain)
+
+    def _use_own_network(self, design: Design) -> None:
+        self._set_design(self._with_current_sections(design), OWN_NETWORK)
+
+    def _use_loaded(self, design: Design) -> None:
+        self._set_design(design, LOADED_DESIGN)  # raises before changing anything if it cannot analyse
+        self._loaded = design
+        self.opamp_panel.set_opamp(design.opamp)
+        self.plant_panel.set_plant(design.plant, design.feedback_gain)
+
+    def _use_opamp(self, opamp: OpAmp | None) -> None:
+        self._rebuild(self._base.with_sections(opamp=opamp))
+
+    def _use_plant(self, plant: Plant | None, feedback_gain: float) -> None:
+        self._rebuild(self._base.with_sections(plant=plant, feedback_gain=feedback_gain))
+
+    def _rebuild(self, base: Design) -> None:
+        """New sections: rebuild the Analyzer (and its grid) at the current values, then redraw."""
+        moved = {n: v for n, v in self._panel.values().items() if v != base.values[n]}
+        current = base.with_values(moved) if moved else base
+        try:
+            analyzer = _analyzer(current)
+        except LoopcraftError as err:
+            self.status.show(f"cannot analyse with these settings: {err}")
+            return
+        self._base = base
+        self._analyzer = analyzer
+        self.bode.set_grid(analyzer.f_hz)
+        self._amp_shown = None  # new sections: annotate the op-amp loop afresh
+        self._redraw(self._dragged)
+
+    # ------------------------------------------------------------------ the one observer
+    def _on_slider(self, change) -> None:
+        if change["old"] == change["new"]:
+            return  # the browser's grid rounding, undone by the slider's validator
+        name = self._slider_names[id(change["owner"])]
+        if self._batch_depth:
+            self._pending = name
+            return
+        self._dragged = name
+        ctl = self._panel.controls[name]
+        failure = self._redraw(name)
+        ctl.show_value()
+        if failure is not None:
+            ctl.error.show(failure)
+
+    @contextmanager
+    def _batched(self) -> Iterator[None]:
+        """Move several sliders, redraw once at the end."""
+        self._batch_depth += 1
+        try:
+            yield
+        finally:
+            self._batch_depth -= 1
+            if not self._batch_depth and self._pending is not False:
+                self._pending = False
+                self._redraw(self._dragged)
+                for c in self._panel.controls.values():
+                    c.show_value()
+
+    def set_values(self, values: Mapping[str, float]) -> None:
+        """Set several component values (SI base units) and redraw once."""
+        with self._batched():
+            for name, v in values.items():
+                self._panel.controls[name].set_value(float(v))
+
+    def _on_snap(self, series: str) -> None:
+        self._series = series
+        with self._batched():
+            for c in self._panel.controls.values():
+                c.set_series(series)
+
+    def _amplifier_loop(self, a: Analysis, dragged: str | None) -> AmplifierLoop | None:
+        """The op-amp loop to annotate: fresh, or while a slider moves in a kernel, the last one.
+
+        The op-amp's own loop (its crossover and margins) is found by root
+        searches that cost more than the rest of a move together, so during a
+        drag in a running event loop it is refreshed once the slider has rested
+        for :data:`SETTLE_S` seconds (:meth:`settle`). Without an event loop
+        (scripts, tests) it is computed at once.
+        """
+        if a.actual is None:
+            self._amp_shown = None
+            return None
+        if dragged is None or self._amp_shown is None:
+            return self._fresh_amp(a)
+        try:
+            loop = asyncio.get_running_loop()
+        except RuntimeError:  # no event loop: plain Python, compute now
+            return self._fresh_amp(a)
+        if self._settle_handle is not None:
+            self._settle_handle.cancel()
+        self._settle_handle = loop.call_later(SETTLE_S, self.settle)
+        self._amp_stale = True
+        return self._amp_shown
+
+    def _fresh_amp(self, a: Analysis) -> AmplifierLoop | None:
+        self._amp_shown = a.actual.amplifier_loop if a.actual is not None else None
+        self._amp_stale = False
+        return self._amp_shown
+
+    def settle(self) -> None:
+        """Bring the slow annotations (the op-amp loop's crossover) up to date with the screen."""
+        self._settle_handle = None
+        a = self._analysis
+        if a is None or not self._amp_stale:
+            return
+        frame = self.bode.frame(a, self._fresh_amp(a))
+        with self.bode.mag_fig.hold_sync():
+            self.bode.draw(frame)
+
+    def _sensitivity(self, values: Mapping[str, float]) -> Sensitivity | None:
+        try:
+            return sensitivity(_DerivedValues(self._derived, values), values)
+        except LoopcraftError as err:
+            self.status.show(f"sensitivities unavailable at these values: {err}")
+            return None
+
+    def _redraw(self, dragged: str | None) -> str | None:
+        """Compute every view at the slider values, then assign all mark data.
+
+        Returns
+        -------
+        str or None
+            The error message when the update failed (it is shown; the screen
+            keeps the last good state), else None.
+        """
+        values = self._panel.values()
+        try:
+            a = self._analyzer.update(values)
+            bode = self.bode.frame(a, self._amplifier_loop(a, dragged))
+            sens = self._sensitivity(values)
+            pz = self.pzmap.frame(a, sens)
+            table, hl = self.formula.frame(a.transfer, sens, dragged)
+        except LoopcraftError as err:
+            msg = f"cannot analyse at these values: {err}"
+            self.status.show(msg)
+            return msg
+        with self.bode.mag_fig.hold_sync(), self.bode.phase_fig.hold_sync(), self.pzmap.fig.hold_sync():
+            self.bode.draw(bode)
+            self.pzmap.draw(pz, (a, sens))
+            self.formula.draw(table, hl)
+        self._analysis = a
+        if sens is not None:
+            self.status.clear()
+        return None
