@@ -146,12 +146,21 @@ class ActualStage:
 
 
 def _pad_sub(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """A - b for polynomials in descending powers (aligned at the constant term)."""
     n = max(len(a), len(b))
-    return np.pad(a, (n - len(a), 0)) - np.pad(b, (n - len(b), 0))
+    out = np.zeros(n)
+    out[n - len(a):] += a
+    out[n - len(b):] -= b
+    return out
 
 
 def _pad_add(a: np.ndarray, b: np.ndarray) -> np.ndarray:
-    return _pad_sub(a, -b)
+    """A + b for polynomials in descending powers."""
+    n = max(len(a), len(b))
+    out = np.zeros(n)
+    out[n - len(a):] += a
+    out[n - len(b):] += b
+    return out
 
 
 @cache

@@ -16,7 +16,14 @@ from dataclasses import dataclass
 import numpy as np
 
 from .amplifier import ActualStage, actual_stage
-from .asymptote import asymptote_mag_db, asymptote_phase_deg, exact_mag_db, exact_phase_deg
+from .asymptote import (
+    _asymptote_mag_db_u,
+    _asymptote_phase_deg_u,
+    _exact_mag_db_u,
+    _exact_phase_deg_u,
+    _log10_omega,
+    exact_phase_deg,
+)
 from .evaluator import TransferResult
 from .factors import FactoredNumeric
 from .loop import PlantLoop, plant_loop
@@ -119,7 +126,7 @@ class Analyzer:
         self.opamp = design.opamp if design.opamp is not None and not design.opamp.is_ideal else None
         self.plant_fn = design.plant.factored() if design.plant is not None else None
         self._plant_cache: tuple[np.ndarray, np.ndarray] | None = None
-        self.f_hz = np.asarray(f_hz, dtype=float) if f_hz is not None else np.array([1.0, 10.0])
+        self.f_hz = f_hz if f_hz is not None else np.array([1.0, 10.0])
         if f_hz is None:
             first = self.update()
             extra = [self.opamp.gbw_hz] if self.opamp is not None else []
@@ -129,45 +136,49 @@ class Analyzer:
                 extra += [c.f_hz for c in first.loop.margins.crossovers]
             lo, hi = default_band_hz(*fns, extra_hz=tuple(extra))
             self.f_hz = np.logspace(math.log10(lo), math.log10(hi), 500)
-            self._plant_cache = None
+
+    @property
+    def f_hz(self) -> np.ndarray:
+        """The frequency grid, Hz (fixed while values move)."""
+        return self._f_hz
+
+    @f_hz.setter
+    def f_hz(self, f_hz: np.ndarray) -> None:
+        self._f_hz = np.asarray(f_hz, dtype=float)
+        self._u = _log10_omega(self._f_hz)  # validated once; every curve reuses it
+        self._plant_cache = None
 
     def update(self, values: Mapping[str, float] | None = None) -> Analysis:
         """Analyse at ``values`` (SI base units; the design's own when omitted)."""
         ev = self.evaluator
         tr = ev.evaluate_tuple(ev.values_tuple(values if values is not None else self.design.values))
         fn = tr.factored
-        f = self.f_hz
+        u = self._u
+        ideal_mag, ideal_phase = _exact_mag_db_u(fn, u), _exact_phase_deg_u(fn, u)
         kw = {}
-        stage_fn = fn
+        stage_fn, s_mag, s_phase = fn, ideal_mag, ideal_phase
         if self.opamp is not None:
             act = actual_stage(self.design.stage, tr, self.opamp)
             stage_fn = act.factored
-            kw.update(
-                actual=act,
-                actual_mag_db=exact_mag_db(act.factored, f),
-                actual_phase_deg=exact_phase_deg(act.factored, f),
-            )
+            s_mag, s_phase = _exact_mag_db_u(stage_fn, u), _exact_phase_deg_u(stage_fn, u)
+            kw.update(actual=act, actual_mag_db=s_mag, actual_phase_deg=s_phase)
         if self.plant_fn is not None:
             # The plant does not move with the sliders: its curves on the grid are cached, and
             # the loop curves are plant + stage in dB and degrees (L = P·k_fb·(∓H); the sign
-            # and branch enter as one constant phase offset).
+            # and branch enter as one constant phase offset). Margins are searched over the
+            # loop's own band (beyond its corners and 0 dB crossing), so a crossing that a
+            # slider pushes off the display is still found.
             p_mag, p_phase = self._plant_curves()
             k_db = 20.0 * math.log10(abs(self.design.feedback_gain))
-            s_mag = kw["actual_mag_db"] if "actual_mag_db" in kw else None
-            s_phase = kw["actual_phase_deg"] if "actual_phase_deg" in kw else None
-            if s_mag is None:
-                s_mag, s_phase = exact_mag_db(fn, f), exact_phase_deg(fn, f)
-            # Margins are searched over the loop's own band (beyond its corners and 0 dB
-            # crossing), so a crossing that a slider pushes off the display is still found.
             lp = plant_loop(self.design.stage.kind, stage_fn, self.plant_fn, self.design.feedback_gain)
-            loop_phase = p_phase + s_phase + _branch_offset_deg(lp.loop, p_phase[0] + s_phase[0], f[0])
+            loop_phase = p_phase + s_phase + _branch_offset_deg(lp.loop, p_phase[0] + s_phase[0], self._f_hz[0])
             kw.update(loop=lp, loop_mag_db=p_mag + s_mag + k_db, loop_phase_deg=loop_phase)
         return Analysis(
-            f,
-            exact_mag_db(fn, f),
-            exact_phase_deg(fn, f),
-            asymptote_mag_db(fn, f),
-            asymptote_phase_deg(fn, f),
+            self._f_hz,
+            ideal_mag,
+            ideal_phase,
+            _asymptote_mag_db_u(fn, u),
+            _asymptote_phase_deg_u(fn, u),
             tr.zeros,
             tr.poles,
             tr,
@@ -176,7 +187,7 @@ class Analyzer:
 
     def _plant_curves(self) -> tuple[np.ndarray, np.ndarray]:
         if self._plant_cache is None:
-            self._plant_cache = (exact_mag_db(self.plant_fn, self.f_hz), exact_phase_deg(self.plant_fn, self.f_hz))
+            self._plant_cache = (_exact_mag_db_u(self.plant_fn, self._u), _exact_phase_deg_u(self.plant_fn, self._u))
         return self._plant_cache
 
 

@@ -189,7 +189,11 @@ def asymptote_mag_db(fn: FactoredNumeric, f_hz: np.ndarray) -> np.ndarray:
         For a zero or non-finite gain or a frequency that is not finite and > 0.
     """
     _check_fn(fn)
-    u = _log10_omega(f_hz)
+    return _asymptote_mag_db_u(fn, _log10_omega(f_hz))
+
+
+def _asymptote_mag_db_u(fn: FactoredNumeric, u: np.ndarray) -> np.ndarray:
+    """As :func:`asymptote_mag_db`, at ``u = log10(ω)`` (ω = 2π·f in rad/s) already validated."""
     out = 20.0 * math.log10(abs(fn.gain)) + 20.0 * fn.origin_order * u
     for u_c, d_slope in _magnitude_breaks(fn):
         out = out + d_slope * np.maximum(u - u_c, 0.0)
@@ -217,7 +221,11 @@ def asymptote_phase_deg(fn: FactoredNumeric, f_hz: np.ndarray) -> np.ndarray:
         For a zero or non-finite gain or a frequency that is not finite and > 0.
     """
     _check_fn(fn)
-    u = _log10_omega(f_hz)
+    return _asymptote_phase_deg_u(fn, _log10_omega(f_hz))
+
+
+def _asymptote_phase_deg_u(fn: FactoredNumeric, u: np.ndarray) -> np.ndarray:
+    """As :func:`asymptote_phase_deg`, at ``u = log10(ω)`` (ω = 2π·f in rad/s) already validated."""
     out = np.full(u.shape, _gain_phase_offset_deg(fn))
     for u_c, half_width, step in _phase_ramps(fn):
         frac = np.clip(0.5 + (u - u_c) / (2.0 * half_width), 0.0, 1.0)
@@ -249,7 +257,11 @@ def exact_mag_db(fn: FactoredNumeric, f_hz: np.ndarray) -> np.ndarray:
         For a zero or non-finite gain or a frequency that is not finite and > 0.
     """
     _check_fn(fn)
-    u = _log10_omega(f_hz)
+    return _exact_mag_db_u(fn, _log10_omega(f_hz))
+
+
+def _exact_mag_db_u(fn: FactoredNumeric, u: np.ndarray) -> np.ndarray:
+    """As :func:`exact_mag_db`, at ``u = log10(ω)`` (ω = 2π·f in rad/s) already validated."""
     omega = 10.0**u
     out = 20.0 * math.log10(abs(fn.gain)) + 20.0 * fn.origin_order * u
     # Multiply squared factor magnitudes and take one logarithm per group of factors:
@@ -302,7 +314,11 @@ def exact_phase_deg(fn: FactoredNumeric, f_hz: np.ndarray) -> np.ndarray:
         For a zero or non-finite gain or a frequency that is not finite and > 0.
     """
     _check_fn(fn)
-    u = _log10_omega(f_hz)
+    return _exact_phase_deg_u(fn, _log10_omega(f_hz))
+
+
+def _exact_phase_deg_u(fn: FactoredNumeric, u: np.ndarray) -> np.ndarray:
+    """As :func:`exact_phase_deg`, at ``u = log10(ω)`` (ω = 2π·f in rad/s) already validated."""
     omega = 10.0**u
     out = np.full(u.shape, _gain_phase_offset_deg(fn))
     for f in fn.factors:

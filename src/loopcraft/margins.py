@@ -34,7 +34,15 @@ from numbers import Real
 import numpy as np
 from scipy.optimize import brentq
 
-from .asymptote import _LOG10_2PI, _check_fn, _magnitude_breaks, exact_mag_db, exact_phase_deg
+from .asymptote import (
+    _LOG10_2PI,
+    _check_fn,
+    _exact_mag_db_u,
+    _exact_phase_deg_u,
+    _magnitude_breaks,
+    exact_mag_db,
+    exact_phase_deg,
+)
 from .errors import AnalysisError
 from .factors import FactoredNumeric
 
@@ -540,7 +548,7 @@ def loop_margins_factored(
     def log_mag(x: np.ndarray) -> np.ndarray:
         if x.shape == (1,):  # the refiners ask one point at a time: plain floats are faster
             return np.array([mag1(float(x[0])) * ln10_over_20])
-        return exact_mag_db(fn, 10.0**x) * ln10_over_20
+        return _exact_mag_db_u(fn, x + _LOG10_2PI) * ln10_over_20
 
     def phase_at(x: float, ref_deg: float) -> float:
         return phase1(x)
@@ -548,4 +556,4 @@ def loop_margins_factored(
     def slope_at(f: float) -> float:
         return _slope_of_db(lambda x: exact_mag_db(fn, x), f)
 
-    return _margins(u, log_mag, exact_phase_deg(fn, 10.0**u), phase_at, slope_at)
+    return _margins(u, log_mag, _exact_phase_deg_u(fn, u + _LOG10_2PI), phase_at, slope_at)
