@@ -168,7 +168,7 @@ def test_explorer_with_opamp_and_plant(lab_server: LabServer, clean_workspace, l
                                        artifacts_dir: Path) -> None:
     example = Path(__file__).resolve().parents[2] / "src" / "loopcraft" / "examples" / "bus48_loop.json"
     nb = write_explorer_notebook(lab_server.root_dir, "explorer_loop.ipynb", repr(str(example)),
-                                 extra="ex.sections.selected_index = 1\n")
+                                 extra="ex.sections.selected_index = 1\nex.spread.choice.value = 'r5c10'\n")
     page = lab_page
     page.set_viewport_size(SHOT_VIEWPORT)
     _accept_dialogs(page)

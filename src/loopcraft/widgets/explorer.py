@@ -48,6 +48,7 @@ from ._formula import FormulaView
 from ._panels import OpAmpPanel, PlantPanel
 from ._pzmap import PoleZeroView
 from ._sources import FileLoader, NetworkForm
+from ._spread import SpreadOverlay
 from ._theme import COLORS, CSS_CLASS, FONT_STACK
 
 __all__ = ["Explorer", "OWN_NETWORK", "LOADED_DESIGN", "SETTLE_S"]
@@ -184,6 +185,10 @@ class Explorer(widgets.VBox):
         self.bode = BodeView()
         self.pzmap = PoleZeroView()
         self.formula = FormulaView()
+        self.spread = SpreadOverlay(self.bode.mag_fig, self.bode.phase_fig,
+                                    {"x": self.bode.x_scale, "y": self.bode.mag_scale},
+                                    {"x": self.bode.x_scale, "y": self.bode.phase_scale}, self.pzmap)
+        self._spread_stale = False
         self.opamp_panel = OpAmpPanel(design.opamp, self._use_opamp)
         self.plant_panel = PlantPanel(design.plant, design.feedback_gain, self._use_plant)
         self.sections = widgets.Accordion(children=[self.opamp_panel.box, self.plant_panel.box],
@@ -199,7 +204,7 @@ class Explorer(widgets.VBox):
         gap = widgets.Layout(height="12px")
         left = widgets.VBox([self.components_box, self.sections, widgets.Box(layout=gap), self.pzmap.box],
                             layout=widgets.Layout(flex="0 0 390px", width="390px", margin="0 16px 0 0"))
-        right = widgets.VBox([self.bode.box, widgets.Box(layout=gap), self.formula.box],
+        right = widgets.VBox([self.bode.box, self.spread.box, widgets.Box(layout=gap), self.formula.box],
                              layout=widgets.Layout(flex="1 1 auto", min_width="0"))
         style = widgets.HTML(
             f"<style>.{CSS_CLASS['root']} {{ font-family: {FONT_STACK}; }}"
@@ -208,6 +213,7 @@ class Explorer(widgets.VBox):
         self.children = [style, header, self.description, self.source_box, self.status.widget,
                          widgets.HBox([left, right], layout=widgets.Layout(width="100%"))]
         self.picker.observe(self._on_pick, names="value")
+        self.spread.choice.observe(lambda _ch: self._refresh_spread(), names="value")
         self._set_design(design, key)
 
     # ------------------------------------------------------------------ public state
@@ -266,6 +272,7 @@ class Explorer(widgets.VBox):
         out["values"] = self._panel.values()
         out["highlighted"] = tuple(sorted(self.formula.highlighted))
         out["dragged"] = self._dragged
+        out["spread"] = self.spread.state()
         return out
 
     def select(self, key: str) -> None:
@@ -303,6 +310,7 @@ class Explorer(widgets.VBox):
         self._show_header(design, key)
         self._set_picker(key)
         self._redraw(None)
+        self._refresh_spread()
 
     def _show_header(self, design: Design, key: str) -> None:
         t = TOPOLOGIES.get(key)
@@ -393,6 +401,7 @@ class Explorer(widgets.VBox):
         self.bode.set_grid(analyzer.f_hz)
         self._amp_shown = None  # new sections: annotate the op-amp loop afresh
         self._redraw(self._dragged)
+        self._refresh_spread()
 
     # ------------------------------------------------------------------ the one observer
     def _on_slider(self, change) -> None:
@@ -465,14 +474,43 @@ class Explorer(widgets.VBox):
         return self._amp_shown
 
     def settle(self) -> None:
-        """Bring the slow annotations (the op-amp loop's crossover) up to date with the screen."""
+        """Bring the slow views (op-amp loop crossover, tolerance overlay) up to date with the screen."""
         self._settle_handle = None
+        if self._spread_stale:
+            self._refresh_spread()
         a = self._analysis
         if a is None or not self._amp_stale:
             return
         frame = self.bode.frame(a, self._fresh_amp(a))
         with self.bode.mag_fig.hold_sync():
             self.bode.draw(frame)
+
+    def _refresh_spread(self) -> None:
+        """Recompute the tolerance overlay at the current values (not on the slider path)."""
+        self._spread_stale = False
+        try:
+            fr = self.spread.frame(self.design, self.f_hz)
+        except LoopcraftError as err:
+            self.spread.draw(None)
+            self.spread.note.value = (f'<span style="color:{COLORS["error"]}; font-size:12px">'
+                                      f"{html.escape(str(err))}</span>")
+            return
+        with self.bode.mag_fig.hold_sync(), self.bode.phase_fig.hold_sync(), self.pzmap.fig.hold_sync():
+            self.spread.draw(fr)
+
+    def _spread_after_move(self) -> None:
+        """A slider moved: refresh the overlay now (no event loop) or once the slider rests."""
+        if not self.spread.active:
+            return
+        try:
+            loop = asyncio.get_running_loop()
+        except RuntimeError:
+            self._refresh_spread()
+            return
+        self._spread_stale = True
+        if self._settle_handle is not None:
+            self._settle_handle.cancel()
+        self._settle_handle = loop.call_later(SETTLE_S, self.settle)
 
     def _sensitivity(self, values: Mapping[str, float]) -> Sensitivity | None:
         try:
@@ -508,4 +546,6 @@ class Explorer(widgets.VBox):
         self._analysis = a
         if sens is not None:
             self.status.clear()
+        if dragged is not None:
+            self._spread_after_move()
         return None

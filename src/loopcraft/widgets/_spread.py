@@ -1,0 +1,248 @@
+"""The tolerance overlay: envelope bands on the Bode figures and root clouds on the s-plane.
+
+The spread is a seeded Monte Carlo run (:func:`loopcraft.tolerance.monte_carlo`)
+over the design's own ``tolerances`` section or a stock choice. It is not on
+the slider path: the explorer refreshes it when the overlay is switched on,
+when the design changes, and once a slider has come to rest.
+"""
+
+from __future__ import annotations
+
+import html
+import math
+from dataclasses import dataclass
+from typing import Any
+
+import bqplot as bq
+import ipywidgets as widgets
+import numpy as np
+
+from ..design import Design
+from ..errors import LoopcraftError
+from ..tolerance import monte_carlo
+from ._pzmap import PoleZeroView, signed_log
+from ._sync import TraitWriter
+from ._theme import COLORS
+
+__all__ = ["SpreadOverlay", "SpreadFrame", "SPREAD_CHOICES", "SPREAD_SAMPLES", "CLOUD_SAMPLES"]
+
+#: Overlay choices: label, key. "design" uses the design file's own tolerances section.
+SPREAD_CHOICES = (("off", "off"), ("design tolerances", "design"), ("R 1 %, C 5 %", "r1c5"), ("R 5 %, C 10 %", "r5c10"))
+_STOCK = {"r1c5": {"R*": "1%", "C*": "5%", "L*": "10%"}, "r5c10": {"R*": "5%", "C*": "10%", "L*": "20%"}}
+
+#: Monte Carlo samples behind the bands, and how many of them draw the root clouds.
+SPREAD_SAMPLES = 400
+CLOUD_SAMPLES = 120
+
+
+@dataclass(frozen=True)
+class SpreadFrame:
+    """Everything the overlay draws (Hz, dB, degrees; s-plane in the map's signed-log units)."""
+
+    curve: str
+    f_hz: np.ndarray
+    mag_lo_db: np.ndarray
+    mag_hi_db: np.ndarray
+    phase_lo_deg: np.ndarray
+    phase_hi_deg: np.ndarray
+    pole_x: np.ndarray
+    pole_y: np.ndarray
+    zero_x: np.ndarray
+    zero_y: np.ndarray
+    note_html: str
+
+
+def _tolerances(design: Design, key: str) -> dict[str, Any] | None:
+    if key == "design":
+        return dict(design.tolerances) if design.tolerances else None
+    stock = dict(_STOCK[key])
+    names = design.stage.component_names
+    return {k: v for k, v in stock.items() if any(n[0] == k[0] for n in names)}
+
+
+class SpreadOverlay:
+    """Bands and clouds added to an explorer's Bode figures and s-plane map.
+
+    Parameters
+    ----------
+    bode_mag_fig, bode_phase_fig : bqplot.Figure
+        The explorer's Bode figures; the bands use their scales.
+    mag_scales, phase_scales : dict
+        ``{"x": LogScale, "y": LinearScale}`` of each Bode figure.
+    pzmap : PoleZeroView
+        The s-plane view; the clouds use its scales and signed-log mapping.
+    """
+
+    def __init__(
+        self,
+        bode_mag_fig: bq.Figure,
+        bode_phase_fig: bq.Figure,
+        mag_scales: dict,
+        phase_scales: dict,
+        pzmap: PoleZeroView,
+    ) -> None:
+        self.choice = widgets.Dropdown(
+            options=SPREAD_CHOICES,
+            value="off",
+            description="spread",
+            style={"description_width": "48px"},
+            layout=widgets.Layout(width="210px"),
+        )
+        self.note = widgets.HTML()
+        empty = np.zeros((2, 2))
+        # Thin edges keep a narrow band (1 % parts) visible at full-figure scale.
+        band = {
+            "fill": "between",
+            "fill_opacities": [0.22],
+            "stroke_width": 1.0,
+            "opacities": [0.55, 0.55],
+            "visible": False,
+            "enable_hover": False,
+        }
+        self.band_mag = bq.Lines(
+            x=np.array([1.0, 10.0]),
+            y=empty,
+            scales=mag_scales,
+            colors=[COLORS["loop"]] * 2,
+            fill_colors=[COLORS["loop"]],
+            **band,
+        )
+        self.band_phase = bq.Lines(
+            x=np.array([1.0, 10.0]),
+            y=empty,
+            scales=phase_scales,
+            colors=[COLORS["loop"]] * 2,
+            fill_colors=[COLORS["loop"]],
+            **band,
+        )
+        sc = {"x": pzmap.x_scale, "y": pzmap.y_scale}
+        cloud = {
+            "marker": "circle",
+            "default_size": 9,
+            "opacities": [0.35],
+            "visible": False,
+            "enable_hover": False,
+            "stroke_width": 0.0,
+        }
+        self.cloud_poles = bq.Scatter(x=np.zeros(0), y=np.zeros(0), scales=sc, colors=[COLORS["pole"]], **cloud)
+        self.cloud_zeros = bq.Scatter(x=np.zeros(0), y=np.zeros(0), scales=sc, colors=[COLORS["zero"]], **cloud)
+        # Drawn after the curves (the first curve path of each figure stays the exact curve).
+        bode_mag_fig.marks = [*bode_mag_fig.marks, self.band_mag]
+        bode_phase_fig.marks = [*bode_phase_fig.marks, self.band_phase]
+        pzmap.fig.marks = [pzmap.fig.marks[0], self.cloud_zeros, self.cloud_poles, *pzmap.fig.marks[1:]]
+        self.pzmap = pzmap
+        self.box = widgets.HBox([self.choice, self.note], layout=widgets.Layout(align_items="center"))
+        self._writer = TraitWriter()
+        self.shown: SpreadFrame | None = None
+
+    @property
+    def active(self) -> bool:
+        """True when an overlay choice other than "off" is selected."""
+        return self.choice.value != "off"
+
+    def frame(self, design: Design, f_hz: np.ndarray) -> SpreadFrame | None:
+        """Run the Monte Carlo spread of ``design`` on the explorer's grid (None when off or impossible).
+
+        Raises
+        ------
+        LoopcraftError
+            The tolerances do not fit the design (shown beside the choice by the caller).
+        """
+        if not self.active:
+            return None
+        tol = _tolerances(design, self.choice.value)
+        if not tol:
+            raise LoopcraftError("this design has no 'tolerances' section; pick a stock spread instead")
+        spread = monte_carlo(design, SPREAD_SAMPLES, seed=1, f_hz=f_hz, tolerances=tol)
+        if spread.loop_mag_db is not None:
+            curve, mag, ph = "loop", spread.loop_mag_db, spread.loop_phase_deg
+        else:
+            curve, mag, ph = (
+                ("actual" if spread.stage_is_actual else "exact"),
+                spread.stage_mag_db,
+                spread.stage_phase_deg,
+            )
+        px, py, zx, zy = self._clouds(design, spread)
+        parts = ", ".join(
+            f"{k} ±{100 * float(v):g} %" if not isinstance(v, str) else f"{k} ±{v.rstrip('%')} %"
+            for k, v in tol.items()
+        )
+        note = (
+            f'<span style="color:{COLORS["muted"]}; font-size:12px">band: {html.escape(curve)} curve, '
+            f"min…max of {SPREAD_SAMPLES} seeded samples ({html.escape(parts)})</span>"
+        )
+        return SpreadFrame(
+            curve, np.asarray(spread.f_hz, dtype=float), mag.min, mag.max, ph.min, ph.max, px, py, zx, zy, note
+        )
+
+    def _clouds(self, design: Design, spread) -> tuple[np.ndarray, ...]:
+        ev = design.compile()
+        n = min(CLOUD_SAMPLES, spread.samples)
+        cols = [
+            np.asarray(spread.values[name], dtype=float)
+            if name in spread.values
+            else np.full(spread.samples, design.values[name])
+            for name in ev.names
+        ]
+        poles, zeros = [], []
+        for i in range(n):
+            tr = ev.evaluate_tuple(tuple(float(c[i]) for c in cols))
+            poles.append(tr.poles)
+            zeros.append(tr.zeros)
+        div = 2 * math.pi if self.pzmap.units.value == "Hz" else 1.0
+        x0 = self.pzmap.x0
+
+        def mapped(roots: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
+            r = np.concatenate(roots) if roots else np.zeros(0, dtype=complex)
+            r = r[r != 0]  # origin roots do not move
+            return signed_log(r.real / div, x0), signed_log(r.imag / div, x0)
+
+        return (*mapped(poles), *mapped(zeros))
+
+    def draw(self, fr: SpreadFrame | None) -> None:
+        """Show a frame, or hide the overlay (None)."""
+        w = self._writer
+        if fr is None:
+            for mark in (self.band_mag, self.band_phase, self.cloud_poles, self.cloud_zeros):
+                w.set(mark, visible=False)
+            w.set(self.note, value="")
+            self.shown = None
+            return
+        color = COLORS["loop"] if fr.curve == "loop" else COLORS["actual"] if fr.curve == "actual" else COLORS["ideal"]
+        w.set(
+            self.band_mag,
+            x=fr.f_hz,
+            y=np.vstack([fr.mag_lo_db, fr.mag_hi_db]),
+            colors=[color] * 2,
+            fill_colors=[color],
+            visible=True,
+        )
+        w.set(
+            self.band_phase,
+            x=fr.f_hz,
+            y=np.vstack([fr.phase_lo_deg, fr.phase_hi_deg]),
+            colors=[color] * 2,
+            fill_colors=[color],
+            visible=True,
+        )
+        w.set(self.cloud_poles, x=fr.pole_x, y=fr.pole_y, visible=bool(fr.pole_x.size))
+        w.set(self.cloud_zeros, x=fr.zero_x, y=fr.zero_y, visible=bool(fr.zero_x.size))
+        w.set(self.note, value=fr.note_html)
+        self.shown = fr
+
+    def state(self) -> dict[str, Any] | None:
+        """The overlay data on the marks (None when hidden), for :meth:`Explorer.view_state`."""
+        if not self.band_mag.visible:
+            return None
+        mag = np.asarray(self.band_mag.y, dtype=float)
+        ph = np.asarray(self.band_phase.y, dtype=float)
+        return {
+            "curve": self.shown.curve if self.shown else None,
+            "f_hz": np.asarray(self.band_mag.x, dtype=float),
+            "mag_lo_db": mag[0],
+            "mag_hi_db": mag[1],
+            "phase_lo_deg": ph[0],
+            "phase_hi_deg": ph[1],
+            "pole_cloud": (np.asarray(self.cloud_poles.x, dtype=float), np.asarray(self.cloud_poles.y, dtype=float)),
+            "zero_cloud": (np.asarray(self.cloud_zeros.x, dtype=float), np.asarray(self.cloud_zeros.y, dtype=float)),
+        }
