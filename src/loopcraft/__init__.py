@@ -11,7 +11,7 @@ The public API::
 
 from __future__ import annotations
 
-from .design import FORMAT_VERSION, Design, load
+from .design import FORMAT_VERSION, Design, load, loads
 from .errors import (
     AnalysisError,
     ComponentValueError,
@@ -65,6 +65,7 @@ __all__ = [
     "TransferResult",
     "format_value",
     "load",
+    "loads",
     "parse_network",
     "parse_value",
     "stage_from_dict",

@@ -32,7 +32,7 @@ from .factored import FactoredForm
 from .stage import Stage, stage_from_dict
 from .values import parse_value
 
-__all__ = ["Design", "load", "FORMAT_VERSION"]
+__all__ = ["Design", "load", "loads", "FORMAT_VERSION"]
 
 #: The design-file format version this package writes and reads.
 FORMAT_VERSION = 1
@@ -389,8 +389,26 @@ def load(path: str | os.PathLike[str]) -> Design:
         raise DesignFileError(f"cannot read {str(p)!r}: {err.strerror}") from err
     except UnicodeDecodeError as err:
         raise DesignFileError(f"{str(p)!r} is not UTF-8 text") from err
+    return loads(text, p.name)
+
+
+def loads(text: str, name: str = "<text>") -> Design:
+    """Parse and validate design-file text (JSON).
+
+    Parameters
+    ----------
+    text : str
+        The file's content.
+    name : str
+        Where it came from, for error messages.
+
+    Raises
+    ------
+    DesignFileError
+        Not JSON (line and column given), a key given twice, or a design that breaks the format.
+    """
     try:
         data = json.loads(text, object_pairs_hook=_no_duplicates)
     except json.JSONDecodeError as err:
-        raise DesignFileError(f"{p.name}: not valid JSON: {err.msg} at line {err.lineno}, column {err.colno}") from err
+        raise DesignFileError(f"{name}: not valid JSON: {err.msg} at line {err.lineno}, column {err.colno}") from err
     return Design.from_dict(data)

@@ -15,14 +15,13 @@ Errors leave the explorer's current design in place.
 
 from __future__ import annotations
 
-import json
 from collections.abc import Callable
 from typing import Any
 
 import ipywidgets as widgets
 
 from .._symbols import element_kind
-from ..design import Design, load
+from ..design import Design, load, loads
 from ..errors import DesignFileError, LoopcraftError, ParseError
 from ..network import parse_network
 from ._fields import ErrorNote, TextField
@@ -56,15 +55,6 @@ def network_design_dict(kind: str, first: str, feedback: str, names: tuple[str, 
     }
 
 
-def _no_duplicates(pairs: list[tuple[str, Any]]) -> dict[str, Any]:
-    out: dict[str, Any] = {}
-    for k, v in pairs:
-        if k in out:
-            raise DesignFileError(f"key {k!r} appears twice in one object", k)
-        out[k] = v
-    return out
-
-
 def design_from_json_bytes(data: bytes, name: str) -> Design:
     """Parse an uploaded design file (UTF-8 JSON) and validate it.
 
@@ -77,11 +67,7 @@ def design_from_json_bytes(data: bytes, name: str) -> Design:
         text = bytes(data).decode("utf-8")
     except UnicodeDecodeError as err:
         raise DesignFileError(f"{name!r} is not UTF-8 text") from err
-    try:
-        raw = json.loads(text, object_pairs_hook=_no_duplicates)
-    except json.JSONDecodeError as err:
-        raise DesignFileError(f"{name}: not valid JSON: {err.msg} at line {err.lineno}, column {err.colno}") from err
-    return Design.from_dict(raw)
+    return loads(text, name)
 
 
 class NetworkForm:
