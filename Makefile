@@ -15,8 +15,11 @@ $(BIN)/.installed: pyproject.toml
 
 venv: $(BIN)/.installed
 
+# JupyterLab refuses to start as root unless told; pass the flag only when running as root.
+ROOT_FLAG := $(if $(filter 0,$(shell id -u)),--allow-root,)
+
 lab: venv
-	$(BIN)/jupyter lab notebooks/quickstart.ipynb
+	$(BIN)/jupyter lab $(ROOT_FLAG) notebooks/quickstart.ipynb
 
 test: venv
 	$(BIN)/python -m pytest
