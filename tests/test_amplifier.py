@@ -118,3 +118,15 @@ def test_ideal_opamp_has_no_actual():
     d = design({"kind": "inverting", "input": "R1", "feedback": "R2"}, {"R1": "1k", "R2": "10k"}, {"model": "ideal"})
     with pytest.raises(AnalysisError, match="no real op-amp"):
         d.actual()
+
+
+def test_large_signal_warnings_from_input_amplitude():
+    # Gain -10 with a 1 V peak input at 100 kHz needs 2π·f·Vpk = 6.28 V/µs at the output;
+    # full-power bandwidth SR/(2π·Vpk) (Franco 2002, §6.7).
+    op = {"model": "single_pole", "a0_db": 100, "gbw_hz": "10M", "slew_rate_v_per_us": 5, "output_swing_v": 12}
+    d = design({"kind": "inverting", "input": "R1", "feedback": "R2"}, {"R1": "1k", "R2": "10k"}, op)
+    warns = d.large_signal_warnings(1.0, 100e3)
+    assert len(warns) == 1 and "slew-rate limited" in warns[0]
+    assert d.large_signal_warnings(1.0, 50e3) == ()  # 3.1 V/µs needed: within 5 V/µs
+    swing = d.large_signal_warnings(1.5, 1e3)  # 15 V peak asked of a 12 V swing
+    assert len(swing) == 1 and "output swing exceeded" in swing[0]

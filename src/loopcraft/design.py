@@ -301,6 +301,34 @@ class Design:
         """The op-amp's own loop: crossover, phase margin, rate of closure, departure frequency."""
         return self.actual().amplifier_loop
 
+    def large_signal_warnings(self, input_amplitude_v: float, f_hz: float) -> tuple[str, ...]:
+        """Output-swing and slew-rate warnings for a sine at the stage input.
+
+        The output amplitude is |H(j·2π·f)|·input, with the real op-amp's
+        response when it is finite (ideal otherwise).
+
+        Parameters
+        ----------
+        input_amplitude_v : float
+            Peak amplitude of the input sine, V.
+        f_hz : float
+            Its frequency, Hz.
+
+        Returns
+        -------
+        tuple of str
+            One message per limit exceeded (empty without an op-amp or without limits).
+        """
+        from .errors import AnalysisError
+
+        if not (math.isfinite(input_amplitude_v) and input_amplitude_v >= 0):
+            raise AnalysisError(f"input_amplitude_v must be a finite peak amplitude >= 0 V (got {input_amplitude_v!r})")
+        if self.opamp is None:
+            return ()
+        f = max(float(f_hz), 1e-12)
+        h = self.actual().response([f])[0] if not self.opamp.is_ideal else self.transfer().response([f])[0]
+        return self.opamp.large_signal_warnings(abs(h) * input_amplitude_v, float(f_hz))
+
     def loop(self):
         """The loop around the plant (:class:`loopcraft.loop.PlantLoop`), with the real op-amp when given.
 
