@@ -4,6 +4,10 @@ Subcommands::
 
     loopcraft analyze FILE [--json]
     loopcraft response FILE --hz F [F ...] [--json]
+    loopcraft report FILE -o report.html|report.md
+    loopcraft check FILE [--no-spread] [--json]          (exit 0: spec holds, 1: it does not)
+    loopcraft snap FILE --series E24 -o snapped.json [--combinations]
+    loopcraft spread FILE --samples 10000 --seed 1 [--json]
 
 Errors go to standard error with exit status 2.
 """
@@ -19,6 +23,7 @@ from typing import Any
 
 import numpy as np
 
+from .analysis import analysis_sections, response_columns
 from .design import Design, load
 from .errors import LoopcraftError
 from .values import format_value
@@ -48,10 +53,6 @@ def analyze_dict(design: Design) -> dict[str, Any]:
 
 def _extra_analysis(design: Design) -> dict[str, Any]:
     """Sections added by the loop analysis when an op-amp or plant is given."""
-    try:
-        from .analysis import analysis_sections
-    except ImportError:  # loop analysis not installed in this build
-        return {}
     return analysis_sections(design)
 
 
@@ -62,19 +63,9 @@ def _finite_or_text(x: float) -> float | str:
 def response_dict(design: Design, f_hz: Sequence[float]) -> dict[str, Any]:
     """The ``response --json`` document: magnitude (dB) and phase (degrees) per frequency (Hz)."""
     f = np.asarray(f_hz, dtype=float)
-    try:
-        from .analysis import response_columns
-    except ImportError:
-        cols = _ideal_columns(design, f)
-    else:
-        cols = response_columns(design, f)
+    cols = response_columns(design, f)
     points = [{k: float(v[i]) if k != "f_hz" else float(f[i]) for k, v in cols.items()} for i in range(len(f))]
     return {"points": points}
-
-
-def _ideal_columns(design: Design, f: np.ndarray) -> dict[str, np.ndarray]:
-    h = design.transfer().response(f)
-    return {"f_hz": f, "mag_db": 20 * np.log10(np.abs(h)), "phase_deg": np.degrees(np.angle(h))}
 
 
 def _print_summary(design: Design) -> None:
@@ -124,10 +115,8 @@ def _parser() -> argparse.ArgumentParser:
 
 
 def _add_more(sub) -> None:
-    try:
-        from .cli_more import add_commands
-    except ImportError:
-        return
+    from .cli_more import add_commands  # report, check, snap, spread
+
     add_commands(sub)
 
 
