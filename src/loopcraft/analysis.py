@@ -227,18 +227,7 @@ def analysis_sections(design) -> dict:
 
 def response_columns(design, f_hz: np.ndarray) -> dict[str, np.ndarray]:
     """Columns of ``loopcraft response --json``: ideal, asymptote, actual and loop curves."""
-    a = Analyzer(design, f_hz=np.asarray(f_hz, dtype=float)).update()
-    cols = {
-        "f_hz": a.f_hz,
-        "mag_db": a.exact_mag_db,
-        "phase_deg": a.exact_phase_deg,
-        "asymptote_mag_db": a.asymptote_mag_db,
-        "asymptote_phase_deg": a.asymptote_phase_deg,
-    }
-    if a.actual is not None:
-        cols["actual_mag_db"] = a.actual_mag_db
-        cols["actual_phase_deg"] = a.actual_phase_deg
-    if a.loop is not None:
-        cols["loop_mag_db"] = a.loop_mag_db
-        cols["loop_phase_deg"] = a.loop_phase_deg
-    return cols
+    state = Analyzer(design, f_hz=np.asarray(f_hz, dtype=float)).update().view_state()
+    rename = {"exact_mag_db": "mag_db", "exact_phase_deg": "phase_deg"}
+    return {rename.get(k, k): v for k, v in state.items()
+            if k == "f_hz" or k.endswith("_mag_db") or k.endswith("_phase_deg")}
