@@ -37,7 +37,7 @@ from typing import Any, ClassVar
 import numpy as np
 
 from .errors import AnalysisError, ComponentValueError, DesignFileError
-from .factors import Factor, FactoredNumeric, factored_from_tf, factors_from_roots
+from .factors import Factor, FactoredNumeric, factored_from_tf
 from .values import format_value, parse_value
 
 __all__ = [
