@@ -2,7 +2,7 @@ import mpmath
 import pytest
 import sympy as sp
 
-from loopcraft import Design
+from loopcraft import Design, topology
 from loopcraft._symbols import S, component_symbol
 
 
@@ -33,19 +33,8 @@ def test_sallen_key_q_and_w0_sensitivities():
     # Unity-gain Sallen-Key low-pass: ω0 = 1/sqrt(R1 R2 C1 C2) gives S = -1/2 for every part;
     # Q = sqrt(R1 R2 C1 C2)/(C2 (R1 + R2)) gives S^Q_C1 = 1/2, S^Q_C2 = -1/2,
     # S^Q_R1 = 1/2 - R1/(R1 + R2). Schaumann & Van Valkenburg 2001, ch. 4 (from memory).
-    d = Design.from_dict(
-        {
-            "loopcraft": 1,
-            "stage": {
-                "kind": "circuit",
-                "elements": [["R1", "in", "a"], ["R2", "a", "b"], ["C1", "a", "out"], ["C2", "b", "gnd"]],
-                "opamps": [{"plus": "b", "minus": "out", "out": "out"}],
-                "input": "in",
-                "output": "out",
-            },
-            "values": {"R1": "10k", "R2": "22k", "C1": "22n", "C2": "4.7n"},
-        }
-    )
+    # The library's unit-gain Sallen-Key (C1 from the middle node to the output, C2 to ground).
+    d = topology("sallen_key_lowpass").design().with_values(R1="10k", R2="22k", C1="22n", C2="4.7n")
     rows = {r.label: r for r in d.sensitivity().rows}
     w = rows["ω0p1"].by_component
     assert all(v == pytest.approx(-0.5, rel=1e-12) for v in w.values())

@@ -24,7 +24,6 @@ import html
 import os
 from collections.abc import Iterator, Mapping
 from contextlib import contextmanager
-from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -33,7 +32,6 @@ import numpy as np
 
 from ..amplifier import AmplifierLoop
 from ..analysis import Analysis, Analyzer
-from ..derivation import Derivation
 from ..design import Design, load
 from ..errors import AnalysisError, LoopcraftError, TopologyError
 from ..opamp import OpAmp
@@ -59,19 +57,6 @@ SETTLE_S = 0.25
 #: Picker entries besides the library keys.
 OWN_NETWORK = "__own__"
 LOADED_DESIGN = "__loaded__"
-
-
-@dataclass(frozen=True)
-class _DerivedValues:
-    """The two attributes :func:`loopcraft.sensitivity.sensitivity` reads from a design.
-
-    ``Design.derivation`` re-runs the stage's symbolic ``transfer_expr()`` (a
-    sympy ``cancel``, ~10 ms) before its cache lookup, so the explorer keeps
-    the derivation once per design and hands this holder to ``sensitivity``.
-    """
-
-    derivation: Derivation
-    values: Mapping[str, float]
 
 
 def _analyzer(design: Design) -> Analyzer:
@@ -293,7 +278,6 @@ class Explorer(widgets.VBox):
         derivation = design.derivation
         self._base = design
         self._analyzer = analyzer
-        self._derived = derivation
         old = getattr(self, "_panel", None)
         self._panel = ComponentPanel(design.values, self._on_snap, series=self._series)
         self._slider_names = {id(c.slider): n for n, c in self._panel.controls.items()}
@@ -514,7 +498,8 @@ class Explorer(widgets.VBox):
 
     def _sensitivity(self, values: Mapping[str, float]) -> Sensitivity | None:
         try:
-            return sensitivity(_DerivedValues(self._derived, values), values)
+            # The derivation is cached per stage, so the design itself is the cheap handle.
+            return sensitivity(self._base, values)
         except LoopcraftError as err:
             self.status.show(f"sensitivities unavailable at these values: {err}")
             return None
