@@ -27,8 +27,9 @@ from .asymptote import (
 from .evaluator import TransferResult
 from .factors import FactoredNumeric
 from .loop import PlantLoop, plant_loop
+from .margins import loop_branch_offset_deg
 
-__all__ = ["Analysis", "Analyzer", "default_band_hz", "analysis_sections", "response_columns"]
+__all__ = ["Analysis", "Analyzer", "default_band_hz", "analysis_sections", "loop_summary_lines", "response_columns"]
 
 
 def default_band_hz(*fns: FactoredNumeric, extra_hz: tuple[float, ...] = ()) -> tuple[float, float]:
@@ -105,6 +106,7 @@ class Analysis:
             out["loop_mag_db"] = self.loop_mag_db
             out["loop_phase_deg"] = self.loop_phase_deg
             out["loop_margins"] = self.loop.margins.to_dict()
+            out["loop_stability"] = self.loop.stability.to_dict()
         return out
 
 
@@ -170,7 +172,8 @@ class Analyzer:
             # slider pushes off the display is still found.
             p_mag, p_phase = self._plant_curves()
             k_db = 20.0 * math.log10(abs(self.design.feedback_gain))
-            lp = plant_loop(self.design.stage.kind, stage_fn, self.plant_fn, self.design.feedback_gain)
+            lp = plant_loop(self.design.stage.kind, stage_fn, self.plant_fn, self.design.feedback_gain,
+                            stage_sign=self.design.stage_sign)
             loop_phase = p_phase + s_phase + _branch_offset_deg(lp.loop, p_phase[0] + s_phase[0], self._f_hz[0])
             kw.update(loop=lp, loop_mag_db=p_mag + s_mag + k_db, loop_phase_deg=loop_phase)
         return Analysis(
@@ -192,8 +195,9 @@ class Analyzer:
 
 
 def _branch_offset_deg(loop: FactoredNumeric, summed_deg: float, f0_hz: float) -> float:
-    """The constant (a multiple of 180°) that puts plant + stage phase on the loop's own branch."""
-    return float(exact_phase_deg(loop, np.array([f0_hz]))[0]) - summed_deg
+    """The constant (a multiple of 180°) that puts plant + stage phase on the loop's own branch
+    (the branch its phase margins are measured on, :func:`loopcraft.margins.loop_branch_offset_deg`)."""
+    return float(exact_phase_deg(loop, np.array([f0_hz]))[0]) + loop_branch_offset_deg(loop) - summed_deg
 
 
 def analysis_sections(design) -> dict:
@@ -213,16 +217,34 @@ def analysis_sections(design) -> dict:
             lines.append(f"actual response departs from the ideal by > 1 dB above {amp.departs_hz:.4g} Hz")
         lines += [f"warning: {w}" for w in amp.warnings]
     if a.loop is not None:
-        m = a.loop.margins
-        out["loop"] = m.to_dict()
-        for c in m.crossovers:
-            lines.append(f"loop crossover {c.f_hz:.4g} Hz: phase margin {c.phase_margin_deg:.1f}°")
-        for g in m.gain_margins:
-            lines.append(f"loop phase crossover {g.f_hz:.4g} Hz: gain margin {g.gain_margin_db:.1f} dB")
-        if not m.crossovers:
-            lines.append("loop gain never crosses 0 dB in the analysed band")
+        out["loop"] = a.loop.to_dict()
+        lines += loop_summary_lines(a.loop)
     out["summary_lines"] = lines
     return out
+
+
+def loop_summary_lines(lp: PlantLoop) -> list[str]:
+    """The loop's verdict first, then every crossover and phase crossover, in words (for the CLI)."""
+    m, st = lp.margins, lp.stability
+    lines = [f"loop: {st.headline()}"]
+    lines += [f"  note: {n}" for n in st.notes]
+    qualifier = "" if st.stable else " (not a margin: the closed loop is not stable)"
+    for c in m.crossovers:
+        lines.append(f"loop crossover {c.f_hz:.4g} Hz: phase margin {c.phase_margin_deg:.1f}°{qualifier}")
+    for g in m.gain_margins:
+        if st.stable:
+            kind = "gain-increase" if g.gain_margin_db >= 0 else "gain-reduction"
+            lines.append(f"loop phase crossover {g.f_hz:.4g} Hz: gain margin {g.gain_margin_db:.1f} dB "
+                         f"({kind}: |L| = {-g.gain_margin_db:.1f} dB there)")
+        else:
+            lines.append(f"loop phase crossover {g.f_hz:.4g} Hz: |L| = {-g.gain_margin_db:.1f} dB there{qualifier}")
+    if st.stable and len(m.crossovers) > 1:
+        worst = min(m.crossovers, key=lambda c: c.phase_margin_deg)
+        lines.append(f"governing phase margin {worst.phase_margin_deg:.1f}° at {worst.f_hz:.4g} Hz "
+                     f"(worst of {len(m.crossovers)} crossovers)")
+    if not m.crossovers:
+        lines.append("loop gain never crosses 0 dB in the analysed band")
+    return lines
 
 
 def response_columns(design, f_hz: np.ndarray) -> dict[str, np.ndarray]:

@@ -7,20 +7,29 @@ error amplifier sensing at its input)
 .. math::  L(s) = P(s) \cdot k_{fb} \cdot (-H(s)),
 
 and for a non-inverting stage L(s) = P(s)·k_fb·H(s), where P is the plant and
-k_fb the divider or sensor gain (V/V). Phase margin = 180° + ∠L at |L| = 1;
-gain margin = -20·log10|L| where ∠L = -180° (mod 360°). Every crossing is
-reported, not only the first.
+k_fb the divider or sensor gain (V/V). A design file may state the sign
+explicitly with its top-level ``stage_sign`` key (-1 or +1: L = stage_sign·P·k_fb·H),
+for an error amplifier wired the other way round; absent, the rule above applies.
+
+Phase margin = 180° + ∠L at |L| = 1 on the loop's continuous phase; gain
+margin = -20·log10|L| where ∠L = -180° (mod 360°). Every crossing is reported,
+not only the first. The verdict itself — stable or not — comes from the
+closed-loop poles (:attr:`PlantLoop.stability`, :mod:`loopcraft.stability`),
+never from the margins alone.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 import scipy.signal as sig
 
 from .factors import FactoredNumeric
+from .errors import DesignFileError
 from .margins import LoopMargins, loop_margins_factored
+from .stability import Stability, closed_loop_stability
 
 #: Search-grid density for loop crossings (analytic phase; resonances get extra points).
 MARGIN_GRID_PER_DECADE = 40
@@ -28,8 +37,13 @@ MARGIN_GRID_PER_DECADE = 40
 __all__ = ["PlantLoop", "plant_loop", "loop_sign"]
 
 
-def loop_sign(stage_kind: str) -> float:
-    """-1 for inverting and circuit stages, +1 for non-inverting ones (see module docstring)."""
+def loop_sign(stage_kind: str, stage_sign: int | None = None) -> float:
+    """The stage's sign in the loop: ``stage_sign`` when given, else -1 for inverting and
+    circuit stages and +1 for non-inverting ones (see module docstring)."""
+    if stage_sign is not None:
+        if stage_sign not in (-1, 1) or isinstance(stage_sign, bool):
+            raise DesignFileError(f"stage_sign must be -1 or +1 (got {stage_sign!r})", "stage_sign")
+        return float(stage_sign)
     return 1.0 if stage_kind == "noninverting" else -1.0
 
 
@@ -47,6 +61,30 @@ class PlantLoop:
 
     loop: FactoredNumeric
     margins: LoopMargins
+
+    @cached_property
+    def stability(self) -> Stability:
+        """Closed-loop stability: pole count cross-checked by Nyquist, loop sign, gain range."""
+        return closed_loop_stability(
+            self.loop, [(-g.gain_margin_db, g.f_hz) for g in self.margins.gain_margins]
+        )
+
+    def to_dict(self) -> dict:
+        """Margins and stability as plain data (the ``loop`` section of ``analyze --json``).
+
+        ``stable``, ``verdict``, ``closed_loop_rhp_poles``, ``open_loop_rhp_poles``,
+        ``closed_loop_poles_rad_s`` (``[[re, im], ...]``), every crossover and phase
+        crossover, the governing (worst) phase margin and the gain-increase and
+        gain-reduction margins (null when unlimited, or when the loop is not stable).
+        """
+        st = self.stability
+        out = self.margins.to_dict()
+        out.update(st.to_dict())
+        out["governing_phase_margin_deg"] = self.margins.phase_margin_deg if st.stable else None
+        out.setdefault("gain_increase_margin_db", None)
+        out.setdefault("gain_reduction_margin_db", None)
+        out["headline"] = st.headline()
+        return out
 
     def response(self, f_hz: np.ndarray) -> np.ndarray:
         """L(j·2π·f) at ``f_hz`` (Hz)."""
@@ -94,6 +132,7 @@ def plant_loop(
     *,
     f_min_hz: float | None = None,
     f_max_hz: float | None = None,
+    stage_sign: int | None = None,
 ) -> PlantLoop:
     """Form the loop gain and find every crossover and gain margin.
 
@@ -109,6 +148,8 @@ def plant_loop(
         Divider or sensor gain, V/V.
     f_min_hz, f_max_hz : float, optional
         Band searched for crossings, Hz; chosen from the corners when omitted.
+    stage_sign : {-1, +1} or None
+        The stage's sign in the loop when stated explicitly; None for the rule above.
     """
-    loop = (plant * stage).scaled(feedback_gain * loop_sign(stage_kind))
+    loop = (plant * stage).scaled(feedback_gain * loop_sign(stage_kind, stage_sign))
     return PlantLoop(loop, loop_margins_factored(loop, f_min_hz, f_max_hz, points_per_decade=MARGIN_GRID_PER_DECADE))

@@ -6,7 +6,18 @@ The loop gain ``L(s)`` excludes the minus sign of the summing junction: the
 closed loop is ``L/(1 + L)`` and the stability boundary is ``L = -1``. Hence
 
 * at every gain crossover (``|L| = 1``) the phase margin is
-  ``PM = 180° + ∠L``, with ∠L wrapped so that PM lies in (-180°, 180°];
+  ``PM = 180° + ∠L``. For a loop in factored form
+  (:func:`loop_margins_factored`) ∠L is the *continuous* phase, summed
+  analytically factor by factor from the loop's low-frequency branch: ``-90°·p``
+  for p poles at the origin when L is positive at low frequency (negative
+  feedback), 180° lower when it is negative (positive feedback). It is never
+  wrapped: a loop whose phase has fallen to -387° at its crossover has a phase
+  margin of -207°, not +153°. For a loop given only as a callable
+  (:func:`loop_margins`) the phase is unwrapped along the grid from the
+  principal value at ``f_min_hz`` and the margin wrapped into (-180°, 180°];
+  that form knows no branch and is not a stability verdict.
+  A phase margin alone never proves stability: :mod:`loopcraft.stability`
+  counts the closed-loop poles;
 * at every phase crossover (``∠L = -180° mod 360°``) the gain margin is
   ``GM = -20·log10|L|`` dB (positive when ``|L| < 1`` there).
 
@@ -52,6 +63,7 @@ __all__ = [
     "LoopMargins",
     "loop_margins",
     "loop_margins_factored",
+    "loop_branch_offset_deg",
     "slope_db_per_decade",
 ]
 
@@ -71,7 +83,9 @@ class Crossover:
     f_hz : float
         Crossover frequency, Hz.
     phase_margin_deg : float
-        ``180° + ∠L`` at the crossover, degrees, in (-180°, 180°].
+        ``180° + ∠L`` at the crossover, degrees: on the loop's continuous
+        branch for a factored loop (not wrapped; see the module docstring),
+        wrapped into (-180°, 180°] for a loop given as a callable.
     slope_db_per_decade : float
         Slope of ``20·log10|L|`` against ``log10 f`` at the crossover, dB/decade.
     """
@@ -304,6 +318,8 @@ def _margins(
     phase_grid: np.ndarray,
     phase_at: Callable[[float, float], float],
     slope_at: Callable[[float], float],
+    *,
+    wrap: bool = True,
 ) -> LoopMargins:
     """Crossovers and phase crossovers from a grid (log10 Hz) and the refiners."""
     g = log_mag(u)
@@ -314,7 +330,9 @@ def _margins(
     crossovers = []
     for r in sorted(set(_mag_roots(u, g, mag_scalar))):
         ref = float(np.interp(r, u, phase_grid))
-        pm = _wrap_pm(180.0 + phase_at(r, ref))
+        pm = 180.0 + phase_at(r, ref)
+        if wrap:
+            pm = _wrap_pm(pm)
         f = 10.0**r
         crossovers.append(Crossover(f_hz=f, phase_margin_deg=pm, slope_db_per_decade=slope_at(f)))
 
@@ -466,6 +484,18 @@ def _resonance_points(fn: FactoredNumeric, u0: float, u1: float) -> np.ndarray:
     return pts[(pts > u0) & (pts < u1)]
 
 
+def loop_branch_offset_deg(fn: FactoredNumeric) -> float:
+    """Shift (0° or -360°) from :func:`~loopcraft.asymptote.exact_phase_deg` to the loop's branch.
+
+    The Bode convention puts a negative constant at +180° when there is no zero
+    at the origin (an inverting integrator reads +90°). For a loop gain the
+    phase margin is measured from -180°, so a loop that is negative at low
+    frequency (positive feedback there) is drawn from ``-180° + 90°·n``
+    instead: 360° lower.
+    """
+    return -360.0 if fn.gain < 0 and fn.origin_order <= 0 else 0.0
+
+
 def _scalar_evaluators(fn: FactoredNumeric) -> tuple[Callable[[float], float], Callable[[float], float]]:
     """Scalar |L| in dB and continuous phase in degrees at log10(f/Hz), in plain floats.
 
@@ -550,10 +580,12 @@ def loop_margins_factored(
             return np.array([mag1(float(x[0])) * ln10_over_20])
         return _exact_mag_db_u(fn, x + _LOG10_2PI) * ln10_over_20
 
+    shift = loop_branch_offset_deg(fn)
+
     def phase_at(x: float, ref_deg: float) -> float:
-        return phase1(x)
+        return phase1(x) + shift
 
     def slope_at(f: float) -> float:
         return _slope_of_db(lambda x: exact_mag_db(fn, x), f)
 
-    return _margins(u, log_mag, _exact_phase_deg_u(fn, u + _LOG10_2PI), phase_at, slope_at)
+    return _margins(u, log_mag, _exact_phase_deg_u(fn, u + _LOG10_2PI) + shift, phase_at, slope_at, wrap=False)

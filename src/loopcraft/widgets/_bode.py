@@ -33,6 +33,7 @@ from ..amplifier import AmplifierLoop
 from ..analysis import Analysis
 from ..asymptote import asymptote_mag_db, exact_phase_deg
 from ..factors import FactoredNumeric
+from ..margins import loop_branch_offset_deg
 from ..values import format_value
 from ._axes import clamp_log, decade_ticks, keep_or_fit, linear_ticks
 from ._sync import TraitWriter
@@ -78,6 +79,9 @@ class BodeFrame:
         Text annotations at data coordinates (Hz; dB or degrees).
     mag_range_db, phase_range_deg : (lo, hi, tick step)
     margins_html, legend_html : str
+    verdict : str or None
+        The closed-loop verdict shown (``"stable"``, ``"unstable"``, ``"marginal"``,
+        ``"uncertain"``); None without a plant.
     """
 
     curve_names: tuple[str, ...]
@@ -103,6 +107,7 @@ class BodeFrame:
     phase_range_deg: tuple[float, float, float]
     margins_html: str
     legend_html: str
+    verdict: str | None = None
 
 
 def _corner_points(fn: FactoredNumeric, f_lo: float,
@@ -155,14 +160,38 @@ def _legend(curves: tuple[str, ...], has_margins: bool, has_amp: bool) -> str:
             f'color:{COLORS["text"]}; line-height:1.8; padding:0 0 0 {FIGURE_MARGIN["left"]}px">{cells}</div>')
 
 
+def _verdict_html(st) -> str:
+    """The closed-loop verdict, first and in colour: STABLE in green, anything else in red."""
+    head = st.headline()
+    word, _, rest = head.partition(":")
+    color = COLORS["ok"] if st.stable else COLORS["error"]
+    out = (f'<span style="color:{color}; font-weight:700">{html.escape(word)}</span>'
+           f'<span style="color:{color}">:{html.escape(rest)}</span>')
+    notes = [n for n in st.notes if st.stable is False or "negative at low frequency" not in n]
+    if notes:
+        out += "<br>" + "<br>".join(f'<span style="color:{COLORS["muted"]}">{html.escape(n)}</span>' for n in notes)
+    return out
+
+
 def _margins_html(a: Analysis, amp: AmplifierLoop | None) -> str:
     lines = []
     if a.loop is not None:
         m = a.loop.margins
-        parts = [f"crossover {html.escape(format_value(c.f_hz, 'Hz'))}, phase margin <b>{c.phase_margin_deg:.1f}°</b>"
-                 for c in m.crossovers] or ["never crosses 0 dB in the band shown"]
-        parts += [f"gain margin <b>{g.gain_margin_db:.1f} dB</b> at {html.escape(format_value(g.f_hz, 'Hz'))}"
-                  for g in m.gain_margins]
+        st = a.loop.stability
+        lines.append(_verdict_html(st))
+        if st.stable:
+            parts = [f"crossover {html.escape(format_value(c.f_hz, 'Hz'))}, phase margin "
+                     f"<b>{c.phase_margin_deg:.1f}°</b>" for c in m.crossovers] or ["never crosses 0 dB"]
+            parts += [f"{'gain margin' if g.gain_margin_db >= 0 else 'gain-reduction margin'} "
+                      f"<b>{abs(g.gain_margin_db):.1f} dB</b> at {html.escape(format_value(g.f_hz, 'Hz'))}"
+                      for g in m.gain_margins]
+        else:
+            # No margin is shown as a pass on a loop that is not stable: the numbers are
+            # labelled for what they are (180° + ∠L, |L|), not as margins.
+            parts = [f"crossover {html.escape(format_value(c.f_hz, 'Hz'))}: 180° + ∠L = "
+                     f"{c.phase_margin_deg:.1f}° (not a margin)" for c in m.crossovers] or ["never crosses 0 dB"]
+            parts += [f"∠L = −180° at {html.escape(format_value(g.f_hz, 'Hz'))}: |L| = {-g.gain_margin_db:.1f} dB"
+                      for g in m.gain_margins]
         lines.append(f'<span style="color:{COLORS["loop"]}; font-weight:600">Loop gain:</span> ' + " · ".join(parts))
     else:
         lines.append(f'<span style="color:{COLORS["muted"]}">No plant: open <i>Plant &amp; feedback</i> '
@@ -263,6 +292,7 @@ class BodeView:
                                 layout=widgets.Layout(width="100%"))
         self._writer = TraitWriter()
         self.curve_names: tuple[str, ...] = ("exact",)
+        self.verdict: str | None = None
         self.mag_seg_kinds: tuple[str, ...] = ()
         self.guide_kinds: tuple[str, ...] = ()
         self.phase_seg_kinds: tuple[str, ...] = ()
@@ -333,8 +363,10 @@ class BodeView:
         if a.loop is not None:
             m = a.loop.margins
             crossings = [c for c in m.crossovers if f_lo <= c.f_hz <= f_hi][:MAX_ANNOTATED]
+            stable = a.loop.stability.stable
             if crossings:
-                phase_c = exact_phase_deg(a.loop.loop, np.array([c.f_hz for c in crossings]))
+                phase_c = (exact_phase_deg(a.loop.loop, np.array([c.f_hz for c in crossings]))
+                           + loop_branch_offset_deg(a.loop.loop))
                 refs_done: set[float] = set()
                 for c, ph in zip(crossings, phase_c, strict=True):
                     ref = float(ph) - c.phase_margin_deg
@@ -347,15 +379,17 @@ class BodeView:
                     ph_x.append([c.f_hz, c.f_hz])
                     ph_y.append([ref, float(ph)])
                     ph_kinds.append("pm")
-                    ph_labels.append((c.f_hz, 0.5 * (ref + float(ph)), f"PM {c.phase_margin_deg:.1f}°",
-                                      COLORS["margin"]))
+                    label = f"PM {c.phase_margin_deg:.1f}°" if stable else "UNSTABLE"
+                    ph_labels.append((c.f_hz, 0.5 * (ref + float(ph)), label,
+                                      COLORS["margin"] if stable else COLORS["error"]))
                     guides.append((c.f_hz, "fc"))
                     mag_labels.append((c.f_hz, None, f"fc {format_value(c.f_hz, 'Hz')}", COLORS["margin"]))
             for g in [g for g in m.gain_margins if f_lo <= g.f_hz <= f_hi][:MAX_ANNOTATED]:
                 seg_x.append([g.f_hz, g.f_hz])
                 seg_y.append([-g.gain_margin_db, 0.0])
                 seg_kinds.append("gm")
-                mag_labels.append((g.f_hz, 0.0, f"GM {g.gain_margin_db:.1f} dB", COLORS["gain_margin"]))
+                text = f"GM {g.gain_margin_db:.1f} dB" if stable else f"|L| {-g.gain_margin_db:.1f} dB"
+                mag_labels.append((g.f_hz, 0.0, text, COLORS["gain_margin"]))
         if a.actual is None:
             amp = None
         if amp is not None and amp.crossover_hz is not None and f_lo <= amp.crossover_hz <= f_hi:
@@ -389,6 +423,7 @@ class BodeView:
             np.array(ph_x, dtype=float).reshape(-1, 2), np.array(ph_y, dtype=float).reshape(-1, 2),
             tuple(ph_kinds), tuple(mag_labels), tuple(ph_labels), mag_range, phase_range,
             _margins_html(a, amp), _legend(tuple(names), a.loop is not None, amp is not None),
+            a.loop.stability.verdict if a.loop is not None else None,
         )
 
     # -- draw -----------------------------------------------------------------
@@ -418,6 +453,7 @@ class BodeView:
         w.set(self.legend, value=fr.legend_html)
         w.set(self.margins, value=fr.margins_html)
         self.curve_names = fr.curve_names
+        self.verdict = fr.verdict
         self.mag_seg_kinds = fr.mag_seg_kinds
         self.guide_kinds = fr.guide_kinds
         self.phase_seg_kinds = fr.phase_seg_kinds
@@ -474,6 +510,7 @@ class BodeView:
                     if k == "gm":
                         gms.append({"f_hz": float(xs[0]), "gain_margin_db": float(-ys[0])})
             out["loop_margins"] = {"crossovers": crossovers, "gain_margins": gms}
+            out["loop_verdict"] = self.verdict
         if self.guides.visible and "opamp" in self.guide_kinds:
             gx = np.atleast_2d(np.asarray(self.guides.x, dtype=float))
             out["amplifier_crossover_hz"] = float(gx[self.guide_kinds.index("opamp")][0])
