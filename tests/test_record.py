@@ -23,7 +23,7 @@ import pytest
 import loopcraft
 from loopcraft.design import Design, load
 from loopcraft.errors import LoopcraftError
-from loopcraft.record import DesignRecord, record
+from loopcraft.record import DesignRecord, record, spread_header
 from loopcraft.synthesis import filter_design
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "src" / "loopcraft" / "examples"
@@ -105,8 +105,13 @@ def test_failing_spec_verdict_is_shown():
 
 
 def test_margins_are_those_of_a_fresh_analysis(converter_record):
-    m = loop_design().analyze().loop.margins
-    assert converter_record.loop == m.to_dict()
+    lp = loop_design().analyze().loop
+    m = lp.margins
+    assert {k: converter_record.loop[k] for k in ("crossovers", "gain_margins")} == m.to_dict()
+    # the record carries the closed-loop verdict and shows it before the margins
+    assert converter_record.loop["stable"] is True and converter_record.loop["closed_loop_rhp_poles"] == 0
+    page = converter_record.to_html()
+    assert page.index("STABLE") < page.index("phase margin")
     c = m.crossovers[0]
     assert f"phase margin {c.phase_margin_deg:.2f}°" in converter_record.to_html()
     assert converter_record.amplifier_loop is not None
@@ -254,3 +259,74 @@ def test_record_of_a_guarded_design_has_spread_and_yield():
     assert skipped.spread is None
     assert any("not run" in r for r in skipped.remarks)
     assert all(i["name"] != "yield_min" for i in skipped.spec["items"])
+
+
+# --------------------------------------------------------------------------- hostile text
+
+HOSTILE_TITLE = "<script>alert(1)</script> $\\frac$ [x](javascript:alert(1)) **b** `c`"
+HOSTILE_NOTES = "<img src=x onerror=alert(1)>\n# not a heading\n![y](javascript:alert(2)) &#106;avascript:z | cell"
+HOSTILE_RECORD_NOTES = "<b onmouseover=alert(3)>hi</b> [link](JAVASCRIPT:alert(4)) $x^$"
+
+
+@pytest.fixture(scope="module")
+def hostile_record() -> DesignRecord:
+    d = json.loads((EXAMPLES / "bus48_type3.json").read_text(encoding="utf-8"))
+    d.update(title=HOSTILE_TITLE, notes=HOSTILE_NOTES)
+    # The figure title holds "$\frac$", which matplotlib's mathtext cannot parse: drawing must still work.
+    return record(Design.from_dict(d), HOSTILE_RECORD_NOTES, spread=False, created=STAMP)
+
+
+def _assert_inert(soup) -> None:
+    assert soup.find("script") is None and soup.find("a") is None
+    for tag in soup.find_all(True):
+        assert not any(a.lower().startswith("on") for a in tag.attrs), tag
+        assert not any("javascript" in str(v).lower() for v in tag.attrs.values()), tag
+    for img in soup.find_all("img"):
+        assert img["src"].startswith("data:image/png;base64,"), img
+
+
+def test_markdown_record_neutralises_user_text(hostile_record):
+    # Outside reference: the mistune Markdown renderer (raw HTML passed through) and BeautifulSoup.
+    mistune = pytest.importorskip("mistune")
+    bs4 = pytest.importorskip("bs4")
+    soup = bs4.BeautifulSoup(mistune.html(hostile_record.to_markdown()), "html.parser")
+    _assert_inert(soup)
+    assert soup.find("h1").get_text() == HOSTILE_TITLE
+    assert [h.get_text() for h in soup.find_all("h1")] == [HOSTILE_TITLE]  # "# not a heading" stayed text
+    paragraphs = [p.get_text() for p in soup.find_all("p")]
+    assert HOSTILE_RECORD_NOTES in paragraphs
+    assert "Design notes: " + " ".join(HOSTILE_NOTES.splitlines()) in paragraphs
+    assert len(soup.find_all("img")) == 3  # the formula and the two figures, nothing else
+
+
+def test_html_record_escapes_user_text(hostile_record):
+    bs4 = pytest.importorskip("bs4")
+    for page in (hostile_record.to_html(), hostile_record._repr_html_()):
+        soup = bs4.BeautifulSoup(page, "html.parser")
+        _assert_inert(soup)
+        assert soup.find("h1").get_text() == HOSTILE_TITLE
+        notes = [p.get_text("\n") for p in soup.find_all("p", class_="lc-notes")]
+        assert notes == [HOSTILE_RECORD_NOTES, "Design notes:\n " + HOSTILE_NOTES]  # bs4 joins at <em>, <br>
+    assert bs4.BeautifulSoup(hostile_record.to_html(), "html.parser").title.get_text() == HOSTILE_TITLE
+
+
+def test_markdown_spread_header_reads_as_written():
+    # Spec item names such as phase_margin_min_deg hold underscores, which Markdown could read as
+    # emphasis (CommonMark 0.30, section 6.2); rendered by mistune the lines must read as written.
+    mistune = pytest.importorskip("mistune")
+    bs4 = pytest.importorskip("bs4")
+    rec = record(load(EXAMPLES / "bus48_guarded.json"), created=STAMP, samples=200)
+    soup = bs4.BeautifulSoup(mistune.html(rec.to_markdown()), "html.parser")
+    text = soup.get_text()
+    for line in spread_header(rec.spread):
+        assert line in text, line
+    assert soup.find("em") is None or all("phase" not in em.get_text() for em in soup.find_all("em"))
+
+
+def test_record_notes_with_a_lone_surrogate_are_refused():
+    from loopcraft.errors import DesignFileError
+
+    d = load(EXAMPLES / "bus48_type3.json")
+    with pytest.raises(DesignFileError, match="surrogate") as exc:
+        record(d, "bad \udcff notes", spread=False)
+    assert exc.value.key_path == "notes"

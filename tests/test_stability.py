@@ -320,3 +320,24 @@ def test_stable_example_passes_and_json_carries_the_verdict(capsys, tmp_path: Pa
     loop = json.loads(capsys.readouterr().out)["loop"]
     assert loop["stable"] is False and loop["closed_loop_rhp_poles"] == 2
     assert loop["governing_phase_margin_deg"] is None
+
+
+def test_record_of_an_unstable_loop_says_so_first():
+    d = _design(plant={"kind": "general", "gain": 424.7433, "poles_hz": [1e3] * 4},
+                title="Invented demo: an integrator around four real poles")
+    rec = d.record(notes="deliberately unstable, for the test")
+    page, md = rec.to_html(), rec.to_markdown()
+    for text in (page, md):
+        assert "UNSTABLE" in text and "not a margin" in text
+        assert text.index("UNSTABLE") < text.index("not a margin")
+    assert "phase margin -207" not in page  # never labelled a margin
+
+
+def test_explorer_shows_the_verdict_first():
+    pytest.importorskip("ipywidgets")
+    ex = lc.Explorer(_design(plant={"kind": "general", "gain": 424.7433, "poles_hz": [1e3] * 4}))
+    vs = ex.view_state()
+    assert vs["loop_verdict"] == "unstable"
+    html_text = ex.bode.margins.value
+    assert html_text.index("UNSTABLE") < html_text.index("Loop gain") and "not a margin" in html_text
+    assert "phase margin" not in html_text.split("Op-amp loop")[0]

@@ -69,7 +69,11 @@ class AmplifierLoop:
         The frequency (Hz) below which they differ by more than 1 dB (finite A0
         caps an integrator's DC gain); None when they agree down to the band's end.
     warnings : tuple of str
-        Ringing / oscillation flags in words.
+        Ringing / oscillation flags in words (the stage's own instability first).
+    stage_rhp_poles : int
+        Poles of the stage as built (with this op-amp) in the right half-plane:
+        0 for a stage that settles; any other count means it oscillates or latches,
+        whatever the margins say.
     """
 
     loop: FactoredNumeric
@@ -80,6 +84,12 @@ class AmplifierLoop:
     departs_hz: float | None
     departs_below_hz: float | None
     warnings: tuple[str, ...]
+    stage_rhp_poles: int = 0
+
+    @property
+    def stable(self) -> bool:
+        """True when the stage as built has no pole in the right half-plane."""
+        return self.stage_rhp_poles == 0
 
     def to_dict(self) -> dict:
         """JSON-ready summary (the CLI's ``amplifier_loop`` section)."""
@@ -90,6 +100,8 @@ class AmplifierLoop:
             "departs_hz": self.departs_hz,
             "departs_below_hz": self.departs_below_hz,
             "warnings": list(self.warnings),
+            "stage_stable": self.stable,
+            "stage_rhp_poles": int(self.stage_rhp_poles),
         }
 
 
@@ -299,5 +311,12 @@ def _amplifier_loop(
             )
     else:
         warnings.append("the amplifier loop gain never falls through unity in the analysed band")
+    # The verdict from the poles of the stage as built (the amplifier loop's closed loop),
+    # not from the margins: a margin read on the wrong branch must not hide an oscillator.
+    poles = actual.pole_roots()
+    n_rhp = int(np.sum(poles.real > 1e-9 * np.abs(poles)))
+    if n_rhp:
+        warnings.insert(0, f"UNSTABLE: the stage as built has {n_rhp} pole{'s' if n_rhp != 1 else ''} in the right "
+                           "half-plane with this op-amp (it will oscillate or latch)")
     above, below = _departs_hz(actual, ideal, f_lo, f_hi)
-    return AmplifierLoop(loop, margins, fc, pm, roc, above, below, tuple(warnings))
+    return AmplifierLoop(loop, margins, fc, pm, roc, above, below, tuple(warnings), n_rhp)

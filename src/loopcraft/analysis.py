@@ -55,7 +55,9 @@ class Analysis:
     asymptote_mag_db, asymptote_phase_deg : ndarray
         Straight-line approximations of the same.
     zeros_rad_s, poles_rad_s : ndarray of complex
-        Ideal stage roots, rad/s (origin roots included).
+        Ideal stage roots of the reduced transfer function, rad/s (origin roots
+        included; a zero and a pole that cancel at these values are taken out,
+        see :attr:`TransferResult.cancelled`).
     transfer : TransferResult
         The ideal numeric transfer function.
     actual : ActualStage or None
@@ -96,6 +98,7 @@ class Analysis:
             "asymptote_phase_deg": self.asymptote_phase_deg,
             "poles_rad_s": self.poles_rad_s,
             "zeros_rad_s": self.zeros_rad_s,
+            "cancelled_rad_s": self.transfer.cancelled,
         }
         if self.actual is not None:
             out["actual_mag_db"] = self.actual_mag_db
@@ -182,8 +185,8 @@ class Analyzer:
             ideal_phase,
             _asymptote_mag_db_u(fn, u),
             _asymptote_phase_deg_u(fn, u),
-            tr.zeros,
-            tr.poles,
+            tr.reduced_zeros,
+            tr.reduced_poles,
             tr,
             **kw,
         )
@@ -195,8 +198,10 @@ class Analyzer:
 
 
 def _branch_offset_deg(loop: FactoredNumeric, summed_deg: float, f0_hz: float) -> float:
-    """The constant (a multiple of 180°) that puts plant + stage phase on the loop's own branch
-    (the branch its phase margins are measured on, :func:`loopcraft.margins.loop_branch_offset_deg`)."""
+    """The constant (a multiple of 180°) that puts plant + stage phase on the loop's own branch.
+
+    That is the branch its phase margins are measured on (:func:`loopcraft.margins.loop_branch_offset_deg`).
+    """
     return float(exact_phase_deg(loop, np.array([f0_hz]))[0]) + loop_branch_offset_deg(loop) - summed_deg
 
 

@@ -228,7 +228,10 @@ def _asymptote_phase_deg_u(fn: FactoredNumeric, u: np.ndarray) -> np.ndarray:
     """As :func:`asymptote_phase_deg`, at ``u = log10(ω)`` (ω = 2π·f in rad/s) already validated."""
     out = np.full(u.shape, _gain_phase_offset_deg(fn))
     for u_c, half_width, step in _phase_ramps(fn):
-        frac = np.clip(0.5 + (u - u_c) / (2.0 * half_width), 0.0, 1.0)
+        if half_width > 0.0:
+            frac = np.clip(0.5 + (u - u_c) / (2.0 * half_width), 0.0, 1.0)
+        else:  # a pair on the jω axis (Q = ∞): the phase steps at ω0, half-way on it
+            frac = np.where(u > u_c, 1.0, np.where(u < u_c, 0.0, 0.5))
         out = out + step * frac
     return out
 
@@ -276,6 +279,8 @@ def _exact_mag_db_u(fn: FactoredNumeric, u: np.ndarray) -> np.ndarray:
             y = 1.0 - x * x
             z = x / f.q
             sq = y * y + z * z
+            if not math.isfinite(f.q):  # a pair on the jω axis: |H| is 0 (or ∞) exactly at ω0
+                sq = np.maximum(sq, 1e-300)
         if f.role == "pole":
             sq = 1.0 / sq
         acc = sq if acc is None else acc * sq

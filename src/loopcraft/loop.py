@@ -26,8 +26,8 @@ from functools import cached_property
 import numpy as np
 import scipy.signal as sig
 
-from .factors import FactoredNumeric
 from .errors import DesignFileError
+from .factors import FactoredNumeric
 from .margins import LoopMargins, loop_margins_factored
 from .stability import Stability, closed_loop_stability
 
@@ -38,8 +38,11 @@ __all__ = ["PlantLoop", "plant_loop", "loop_sign"]
 
 
 def loop_sign(stage_kind: str, stage_sign: int | None = None) -> float:
-    """The stage's sign in the loop: ``stage_sign`` when given, else -1 for inverting and
-    circuit stages and +1 for non-inverting ones (see module docstring)."""
+    """The stage's sign in the loop, -1.0 or +1.0.
+
+    ``stage_sign`` when given, else -1 for inverting and circuit stages and +1 for
+    non-inverting ones (see module docstring).
+    """
     if stage_sign is not None:
         if stage_sign not in (-1, 1) or isinstance(stage_sign, bool):
             raise DesignFileError(f"stage_sign must be -1 or +1 (got {stage_sign!r})", "stage_sign")

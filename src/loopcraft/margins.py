@@ -476,7 +476,9 @@ def _resonance_points(fn: FactoredNumeric, u0: float, u1: float) -> np.ndarray:
     offsets = np.linspace(-10.0, 10.0, 201)
     for f in fn.factors:
         if f.order == 2 and f.q is not None and f.q > 0.5:
-            width = 1.0 / (f.q * math.log(10.0))  # ≈ the -3 dB bandwidth ω0/Q, in decades
+            # ≈ the -3 dB bandwidth ω0/Q, in decades (a pair on the jω axis, Q = ∞, gets a
+            # narrow fixed width so its sharp phase step is still bracketed)
+            width = 1.0 / (f.q * math.log(10.0)) if math.isfinite(f.q) else 1e-9
             extra.append(math.log10(f.f_hz) + offsets * width)
     if not extra:
         return np.empty(0)
@@ -513,7 +515,8 @@ def _scalar_evaluators(fn: FactoredNumeric) -> tuple[Callable[[float], float], C
         out = k_db + 20.0 * n * (u + _LOG10_2PI)
         for sm, _sp, order, wc, q in terms:
             x = w / wc
-            out += sm * 20.0 * math.log10(math.hypot(1.0, x) if order == 1 else math.hypot(1.0 - x * x, x / q))
+            out += sm * 20.0 * math.log10(max(math.hypot(1.0, x) if order == 1 else math.hypot(1.0 - x * x, x / q),
+                                              1e-150))
         return out
 
     def phase(u: float) -> float:

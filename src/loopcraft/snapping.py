@@ -228,6 +228,10 @@ def design_quantities(design: Design) -> list[tuple[str, str, str, float]]:
         a = design.analyze()
         if a.loop is not None:
             m = a.loop.margins
+            st = a.loop.stability
+            # The verdict moves too: snapping can push a loop unstable, and the report must say so.
+            out.append(("loop:closed_loop_rhp_poles", f"closed-loop RHP poles ({st.verdict.upper()})", "",
+                        float(st.closed_loop_rhp_poles)))
             for i, c in enumerate(m.crossovers):
                 out.append((f"loop:crossover:{i}:f_hz", f"loop crossover {i + 1}", "Hz", float(c.f_hz)))
                 out.append((f"loop:crossover:{i}:pm", f"loop phase margin {i + 1}", "deg",
@@ -269,6 +273,8 @@ def _fmt_quantity(x: float | None, unit: str) -> str:
         return f"{x:.2f}°"
     if unit == "dB":
         return f"{x:.2f} dB"
+    if math.isinf(x):
+        return "∞" if x > 0 else "-∞"
     return f"{x:.5g}" + (f" {unit}" if unit else "")
 
 
@@ -277,6 +283,10 @@ def _fmt_change(m: Move) -> str:
         return "appears"
     if m.after is None:
         return "disappears"
+    if m.before == m.after:
+        return "0.00" if m.unit in ("deg", "dB") else _percent(0.0)
+    if not (math.isfinite(m.before) and math.isfinite(m.after)):
+        return f"{_fmt_quantity(m.before, m.unit)} → {_fmt_quantity(m.after, m.unit)}"
     if m.unit in ("deg", "dB"):
         text = f"{m.delta:+.2f}"
         text = "0.00" if text in ("+0.00", "-0.00") else text

@@ -418,7 +418,8 @@ def _nyquist(parts: _Parts, cl_roots: np.ndarray) -> tuple[int | None, str | Non
         w = 10.0**u
         with np.errstate(all="ignore"):
             one_plus_l = 1.0 + red.evaluate(1j * w)
-        return _exact_phase_deg_u(d_fn, u) + np.degrees(np.angle(one_plus_l)), np.isfinite(one_plus_l) & (one_plus_l != 0)
+        ok = np.isfinite(one_plus_l) & (one_plus_l != 0)
+        return _exact_phase_deg_u(d_fn, u) + np.degrees(np.angle(one_plus_l)), ok
 
     pts = [np.linspace(lw_lo, lw_hi, int((lw_hi - lw_lo) * 16) + 2)]
     for r in cl_roots:  # extra resolution where a closed-loop pole sits near the axis
