@@ -184,3 +184,44 @@ def test_dc_and_hf_gain():
     tr = inv("R1", "R2 || C1", R1="10k", R2="100k", C1="1n").transfer()
     assert tr.dc_gain() == pytest.approx(-10.0)
     assert tr.hf_gain() == 0.0
+
+
+def _twin_t():
+    from test_factors import twin_t
+
+    return twin_t()
+
+
+def test_transfer_result_keeps_every_root_and_exposes_the_reduced_set():
+    # Balanced twin-T (R = 26.5 kΩ, C = 100 nF): notch at 1/(2π·R·C) = 60.06 Hz (Franco,
+    # "Design with Operational Amplifiers and Analog Integrated Circuits", 2002; section from
+    # memory). zeros/poles stay every root of the numerator/denominator (mpmath reference);
+    # reduced_* drop the coinciding real pair at -1/(R·C).
+    d = _twin_t()
+    tr = d.transfer()
+    _match(tr.zeros, _mp_roots(d.derivation.numerator, d.values), 1e-9)
+    _match(tr.poles, _mp_roots(d.derivation.denominator, d.values), 1e-9)
+    w0 = 1 / (26.5e3 * 100e-9)
+    np.testing.assert_allclose(tr.cancelled, [-w0], rtol=1e-9)
+    assert len(tr.reduced_zeros) == 2 and len(tr.reduced_poles) == 2
+    assert np.all(tr.reduced_zeros.real == 0.0)  # on the jω axis, not -1e-14 of rounding
+    # The reduced form gives the same H as the full one (scipy.signal.freqs on the unreduced tf).
+    v = {component_symbol(k): x for k, x in d.values.items()}
+    b = np.array([float(c) for c in sp.Poly(d.derivation.numerator.subs(v), S).all_coeffs()])
+    a = np.array([float(c) for c in sp.Poly(d.derivation.denominator.subs(v), S).all_coeffs()])
+    f = np.logspace(0, 4, 200)
+    _, h_ref = sig.freqs(b, a, worN=2 * np.pi * f)
+    np.testing.assert_allclose(tr.reduced.response(f), h_ref, rtol=1e-9, atol=1e-12)
+    assert tr.hf_gain() == pytest.approx(1.0) and tr.dc_gain() == pytest.approx(1.0)  # follower, notch
+
+
+def test_symbolic_lossless_pair_has_infinite_q():
+    # Series L1-C1 as the feedback: H = -(sL + 1/(sC))/R = -(1 + s²LC)/(sRC) (from memory), a
+    # zero pair at ±j/sqrt(L·C) with zero damping: the degree-2 factor has a1 = 0 exactly,
+    # so Q = ∞ (not a 1e15 stand-in).
+    d = inv("R1", "L1 + C1", R1="10k", L1="10m", C1="100n")
+    tr = d.transfer()
+    (pair,) = [f for f in tr.factored.factors if f.order == 2]
+    assert pair.q == math.inf and not pair.rhp
+    assert pair.omega_rad_s == pytest.approx(1 / math.sqrt(10e-3 * 100e-9), rel=1e-12)
+    assert "Q = ∞" in str(d.factored())

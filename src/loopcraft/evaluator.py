@@ -27,7 +27,16 @@ import sympy as sp
 from ._symbols import element_kind
 from .derivation import Derivation, formula_text
 from .errors import AnalysisError, ComponentValueError
-from .factors import Factor, FactoredNumeric, factors_from_roots, polynomial_roots
+from .factors import (
+    JW_AXIS_REL_TOL,
+    Cancellation,
+    Factor,
+    FactoredNumeric,
+    cancel_roots,
+    drop_cancelled,
+    factors_from_roots,
+    polynomial_roots,
+)
 from .values import parse_value
 
 __all__ = ["Evaluator", "TransferResult", "compile_derivation"]
@@ -40,11 +49,23 @@ class TransferResult:
     Parameters
     ----------
     factored : FactoredNumeric
-        Normalized factored form (gain K, origin order, factors in rad/s).
+        Normalized factored form (gain K, origin order, factors in rad/s), every
+        factor of the derivation, cancelling pairs included.
     zeros, poles : ndarray of complex
-        All roots in rad/s, roots at the origin included.
+        All roots in rad/s, roots at the origin included, cancelling pairs
+        included (every root of the numerator and denominator).
     values : dict
         The component values used, in SI base units.
+
+    Notes
+    -----
+    A zero and a pole that coincide at these values (exactly, or within
+    :data:`loopcraft.factors.CANCEL_REL_TOL` of their magnitude) cancel:
+    :attr:`reduced_zeros`, :attr:`reduced_poles` and :attr:`reduced` are the
+    transfer function without them, :attr:`cancelled` lists where they were.
+    ``zeros``, ``poles`` and ``factored`` keep every root so that a cancelled
+    right-half-plane pole (an unstable mode H(s) does not show) stays visible;
+    see :attr:`hidden_modes`.
     """
 
     factored: FactoredNumeric
@@ -71,6 +92,46 @@ class TransferResult:
         return self.factored.response(f_hz)
 
     @cached_property
+    def cancellation(self) -> Cancellation:
+        """The coinciding zero/pole pairs at these values (see :func:`loopcraft.factors.cancel_roots`)."""
+        return cancel_roots(self.zeros, self.poles)
+
+    @cached_property
+    def reduced_zeros(self) -> np.ndarray:
+        """Zeros of the reduced transfer function, rad/s (cancelled ones taken out).
+
+        A complex pair within :data:`~loopcraft.factors.JW_AXIS_REL_TOL` of the
+        jω axis is put on it (real part 0), as its factor has Q = ∞.
+        """
+        return _on_axis(self.cancellation.zeros)
+
+    @cached_property
+    def reduced_poles(self) -> np.ndarray:
+        """Poles of the reduced transfer function, rad/s (cancelled ones taken out; jω axis as for zeros)."""
+        return _on_axis(self.cancellation.poles)
+
+    @property
+    def cancelled(self) -> np.ndarray:
+        """Where a zero and a pole cancel: the cancelled poles, rad/s (complex; conjugates listed)."""
+        return self.cancellation.cancelled
+
+    @property
+    def hidden_modes(self) -> np.ndarray:
+        """Cancelled poles in the right half plane or on the jω axis, rad/s.
+
+        The reduced H(s) does not show them, but the stage still has them: a
+        signal inside the circuit grows (or does not decay) even though the
+        input-output response looks stable.
+        """
+        c = self.cancelled
+        return c[c.real >= -JW_AXIS_REL_TOL * np.abs(c)]
+
+    @cached_property
+    def reduced(self) -> FactoredNumeric:
+        """The normalized factored form without the cancelled factors (same response)."""
+        return drop_cancelled(self.factored, self.cancellation)
+
+    @cached_property
     def zpk_gain(self) -> float:
         """Leading gain k of H(s) = k·Π(s - z)/Π(s - p) (scipy's zpk convention)."""
         nz = self.zeros[self.zeros != 0]
@@ -92,6 +153,14 @@ class TransferResult:
         if excess:
             return 0.0 if excess < 0 else math.inf
         return abs(self.zpk_gain)
+
+
+def _on_axis(roots: np.ndarray) -> np.ndarray:
+    """Roots with the real part of near-imaginary complex roots set to 0 (a copy)."""
+    r = np.array(roots, dtype=complex)
+    flat = (r.imag != 0) & (np.abs(r.real) <= JW_AXIS_REL_TOL * np.abs(r))
+    r.real[flat] = 0.0
+    return r
 
 
 def _quadratic_roots(a1: float, a2: float) -> tuple[complex, complex]:
@@ -188,8 +257,11 @@ class Evaluator:
             elif degree == 2 and a[1] > 0 and a[0] * a[0] < 4.0 * a[1]:
                 # Complex pair (Q > 0.5): one second-order factor with its ω0 and Q formulas.
                 w0 = 1.0 / math.sqrt(a[1])
-                q = 1.0 / (w0 * abs(a[0])) if a[0] != 0 else 1e15
-                fs = [Factor(role, 2, w0, q=q, rhp=a[0] < 0, formula=wf, q_formula=qf)]
+                if 0.5 * w0 * abs(a[0]) <= JW_AXIS_REL_TOL:  # damping ζ = a1·ω0/2 ≈ 0: on the jω axis
+                    fs = [Factor(role, 2, w0, q=math.inf, formula=wf, q_formula=qf)]
+                else:
+                    q = 1.0 / (w0 * abs(a[0]))
+                    fs = [Factor(role, 2, w0, q=q, rhp=a[0] < 0, formula=wf, q_formula=qf)]
                 roots = list(_quadratic_roots(a[0], a[1]))
             else:
                 # Real roots of a quadratic (Q <= 0.5, or roots of opposite sign), or a factor

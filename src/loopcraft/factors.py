@@ -11,6 +11,14 @@ A transfer function in normalized factored form is
 with ``+`` for left-half-plane roots and ``-`` for right-half-plane roots,
 ``n > 0`` for zeros at the origin and ``n < 0`` for poles at the origin.
 All frequencies are angular, in rad/s.
+
+A pair of roots on the jω axis (zero damping, a lossless resonance or an
+exact notch) has ``Q = math.inf``; roots whose real part is within
+:data:`JW_AXIS_REL_TOL` of their magnitude count as on the axis.
+
+A zero and a pole that coincide cancel in H(s) without changing the response;
+:func:`cancel_roots` finds such pairs (exact, or within :data:`CANCEL_REL_TOL`
+of the root magnitude) and :func:`drop_cancelled` removes their factors.
 """
 
 from __future__ import annotations
@@ -23,7 +31,30 @@ import numpy as np
 
 from .errors import AnalysisError
 
-__all__ = ["Factor", "FactoredNumeric", "factors_from_roots", "factored_from_tf", "polynomial_roots"]
+__all__ = [
+    "CANCEL_REL_TOL",
+    "JW_AXIS_REL_TOL",
+    "Cancellation",
+    "Factor",
+    "FactoredNumeric",
+    "cancel_roots",
+    "drop_cancelled",
+    "factors_from_roots",
+    "factored_from_tf",
+    "polynomial_roots",
+]
+
+#: A zero z and a pole p cancel when ``|z - p| <= CANCEL_REL_TOL · max(|z|, |p|)``.
+#: 1e-9 is far above the relative error of the computed roots (about 1e-15 for simple
+#: roots, see :func:`polynomial_roots`) and far below any difference a part tolerance
+#: or a slider step can make, so only coincidences of the design itself are cancelled.
+CANCEL_REL_TOL = 1e-9
+
+#: A complex pair whose real part is within ``JW_AXIS_REL_TOL · |root|`` of zero lies on
+#: the jω axis: zero damping, Q = ∞ (rather than the Q ≈ 1e16 of rounding noise).
+#: It stands for Q > 1/(2·JW_AXIS_REL_TOL) = 5e11, beyond any damping parts can set
+#: and beyond what the computed roots resolve.
+JW_AXIS_REL_TOL = 1e-12
 
 
 @dataclass(frozen=True)
@@ -39,9 +70,11 @@ class Factor:
     omega_rad_s : float
         Corner frequency ω (order 1) or natural frequency ω0 (order 2), rad/s, > 0.
     q : float or None
-        Quality factor Q of a second-order factor (> 0); None for order 1.
+        Quality factor Q of a second-order factor (> 0; ``math.inf`` for a
+        pair on the jω axis); None for order 1.
     rhp : bool
-        True when the root(s) lie in the right half plane (the ``-`` sign).
+        True when the root(s) lie in the right half plane (the ``-`` sign);
+        always False for a pair on the jω axis.
     formula : str or None
         The corner (ω or ω0) as a formula in the component symbols, when the
         polynomial factors over the symbols; None when only numeric.
@@ -65,8 +98,10 @@ class Factor:
         if not (math.isfinite(self.omega_rad_s) and self.omega_rad_s > 0):
             raise AnalysisError(f"factor frequency must be finite and > 0 rad/s (got {self.omega_rad_s!r})")
         if self.order == 2:
-            if self.q is None or not (math.isfinite(self.q) and self.q > 0):
-                raise AnalysisError(f"second-order factor needs a finite Q > 0 (got {self.q!r})")
+            if self.q is None or not (self.q > 0):  # math.inf: a pair on the jω axis
+                raise AnalysisError(f"second-order factor needs Q > 0, or inf on the jω axis (got {self.q!r})")
+            if math.isinf(self.q) and self.rhp:
+                raise AnalysisError("a pair on the jω axis (Q = inf) lies in neither half plane; rhp must be False")
         elif self.q is not None:
             raise AnalysisError("a first-order factor has no Q")
 
@@ -74,6 +109,11 @@ class Factor:
     def f_hz(self) -> float:
         """Corner or natural frequency in Hz."""
         return self.omega_rad_s / (2.0 * math.pi)
+
+    @property
+    def on_jw_axis(self) -> bool:
+        """True for a second-order factor with zero damping (Q = ∞, roots ±jω0)."""
+        return self.order == 2 and self.q is not None and math.isinf(self.q)
 
     @property
     def coefficients(self) -> tuple[float, ...]:
@@ -238,10 +278,10 @@ def _real_factors_from_roots(roots: Iterable[complex], role: str, rel_tol: float
         raise AnalysisError("complex roots do not come in conjugate pairs; coefficients must be real")
     for r in upper:
         w0 = abs(r)
-        q = w0 / (2.0 * abs(r.real)) if r.real != 0 else math.inf
-        if not math.isfinite(q):
-            q = 1e15  # lossless pair: keep it representable
-        factors.append(Factor(role, 2, w0, q=q, rhp=r.real > 0))
+        if abs(r.real) <= JW_AXIS_REL_TOL * w0:
+            factors.append(Factor(role, 2, w0, q=math.inf))  # on the jω axis: zero damping
+            continue
+        factors.append(Factor(role, 2, w0, q=w0 / (2.0 * abs(r.real)), rhp=r.real > 0))
     return factors, origin
 
 
@@ -270,6 +310,187 @@ def factors_from_roots(
     zf, nz = _real_factors_from_roots(zeros, "zero", rel_tol)
     pf, npl = _real_factors_from_roots(poles, "pole", rel_tol)
     return FactoredNumeric(float(gain), nz - npl, tuple(zf + pf))
+
+
+@dataclass(frozen=True)
+class Cancellation:
+    """Zeros and poles with the coinciding zero/pole pairs taken out.
+
+    Parameters
+    ----------
+    zeros, poles : ndarray of complex
+        The reduced roots, rad/s, in their input order.
+    pairs : tuple of (complex, complex)
+        Each cancelled (zero, pole) pair, rad/s; a complex pair cancels as two
+        entries, one per conjugate.
+    """
+
+    zeros: np.ndarray
+    poles: np.ndarray
+    pairs: tuple[tuple[complex, complex], ...] = ()
+
+    @property
+    def cancelled(self) -> np.ndarray:
+        """The cancelled poles, rad/s (complex; the mode each cancellation hides)."""
+        return np.array([p for _z, p in self.pairs], dtype=complex)
+
+
+def _half(r: complex, real_tol: float) -> int:
+    """0 for a real root (or the origin), +1 upper and -1 lower half plane."""
+    if abs(r.imag) <= real_tol * abs(r):
+        return 0
+    return 1 if r.imag > 0 else -1
+
+
+def _mate(roots: np.ndarray, used: set[int], target: complex, half: int, real_tol: float) -> int | None:
+    """Index of the unused root of ``half`` nearest ``target`` (the conjugate partner)."""
+    best: tuple[float, int] | None = None
+    for k, r in enumerate(roots):
+        if k in used or _half(complex(r), real_tol) != half:
+            continue
+        d = abs(complex(r) - target)
+        if best is None or d < best[0]:
+            best = (d, k)
+    return None if best is None else best[1]
+
+
+def cancel_roots(
+    zeros: Sequence[complex],
+    poles: Sequence[complex],
+    *,
+    rel_tol: float = CANCEL_REL_TOL,
+    real_tol: float = 1e-9,
+) -> Cancellation:
+    """Take out the zero/pole pairs that coincide (exactly or within ``rel_tol``).
+
+    Parameters
+    ----------
+    zeros, poles : sequence of complex
+        Roots in rad/s; complex roots come in conjugate pairs.
+    rel_tol : float
+        A zero z and a pole p cancel when ``|z - p| <= rel_tol · max(|z|, |p|)``
+        (two roots at the origin always cancel). Default :data:`CANCEL_REL_TOL`.
+    real_tol : float
+        A root whose imaginary part is within ``real_tol·|root|`` counts as real,
+        as in :func:`factors_from_roots`.
+
+    Returns
+    -------
+    Cancellation
+        The reduced zeros and poles and the cancelled pairs.
+
+    Notes
+    -----
+    Only a real zero cancels a real pole, and a complex pair cancels a complex
+    pair as a whole (the upper roots are matched; the conjugates go with them),
+    so the reduced roots still come in conjugate pairs. Among several
+    candidates the closest pairs are taken first. Cancellation does not change
+    H(s), but a cancelled pole in the right half plane or on the jω axis is a
+    mode the reduced function no longer shows.
+    """
+    z = np.asarray(zeros, dtype=complex).ravel()
+    p = np.asarray(poles, dtype=complex).ravel()
+    if not (0.0 <= rel_tol < 1.0) or not math.isfinite(rel_tol):
+        raise AnalysisError(f"rel_tol must be in [0, 1) (got {rel_tol!r})")
+    zh = [_half(complex(r), real_tol) for r in z]
+    ph = [_half(complex(r), real_tol) for r in p]
+    candidates: list[tuple[float, int, int]] = []
+    for i, zi in enumerate(z):
+        if zh[i] < 0:
+            continue
+        for j, pj in enumerate(p):
+            if ph[j] != zh[i]:
+                continue
+            scale = max(abs(zi), abs(pj))
+            d = abs(zi - pj)
+            if d <= rel_tol * scale:
+                candidates.append((d / scale if scale else 0.0, i, j))
+    candidates.sort()
+    used_z: set[int] = set()
+    used_p: set[int] = set()
+    pairs: list[tuple[complex, complex]] = []
+    for _d, i, j in candidates:
+        if i in used_z or j in used_p:
+            continue
+        if zh[i] == 0:
+            used_z.add(i)
+            used_p.add(j)
+            pairs.append((complex(z[i]), complex(p[j])))
+            continue
+        zi, pj = complex(z[i]), complex(p[j])
+        iz = _mate(z, used_z | {i}, zi.conjugate(), -1, real_tol)
+        jp = _mate(p, used_p | {j}, pj.conjugate(), -1, real_tol)
+        if iz is None or jp is None:
+            raise AnalysisError("complex roots do not come in conjugate pairs; coefficients must be real")
+        used_z.update((i, iz))
+        used_p.update((j, jp))
+        pairs += [(zi, pj), (complex(z[iz]), complex(p[jp]))]
+    keep_z = [k for k in range(len(z)) if k not in used_z]
+    keep_p = [k for k in range(len(p)) if k not in used_p]
+    return Cancellation(z[keep_z], p[keep_p], tuple(pairs))
+
+
+def _take_factor(factors: list[Factor], role: str, root: complex) -> bool:
+    """Remove from ``factors`` the ``role`` factor with a root nearest ``root``; False if none is near."""
+    best: tuple[float, int, int] | None = None
+    half = _half(root, 1e-9)
+    for k, f in enumerate(factors):
+        if f.role != role:
+            continue
+        rs = f.roots()
+        m = int(np.argmin(np.abs(rs - root)))
+        if _half(complex(rs[m]), 1e-9) != half:
+            continue  # a real root never takes one root of a complex pair, nor the reverse
+        d = abs(rs[m] - root) / max(abs(root), abs(rs[m]))
+        if best is None or d < best[0]:
+            best = (d, k, m)
+    if best is None or best[0] > 1e-6:
+        return False
+    d, k, m = best
+    f = factors.pop(k)
+    if f.order == 2:
+        rest = complex(f.roots()[1 - m])
+        if rest.imag == 0 or abs(rest.imag) <= 1e-9 * abs(rest):
+            # Q <= 0.5: the other real root stays as a first-order factor.
+            factors.insert(k, Factor(role, 1, abs(rest.real), rhp=rest.real > 0))
+        # A complex pair leaves together: its conjugate is the next cancelled root.
+    return True
+
+
+def drop_cancelled(fn: FactoredNumeric, cancellation: Cancellation) -> FactoredNumeric:
+    """``fn`` without the factors of the cancelled pairs (same H(s) up to the tolerance).
+
+    Parameters
+    ----------
+    fn : FactoredNumeric
+        The full factored form whose roots were passed to :func:`cancel_roots`.
+    cancellation : Cancellation
+        Its result.
+
+    Returns
+    -------
+    FactoredNumeric
+        The reduced form; the gain and the formulas of the remaining factors
+        are kept. Roots at the origin that cancel simply leave the origin order
+        unchanged (it is already the difference).
+
+    Raises
+    ------
+    AnalysisError
+        A cancelled root that belongs to no factor of ``fn``.
+    """
+    if not cancellation.pairs:
+        return fn
+    factors = list(fn.factors)
+    for z, p in cancellation.pairs:
+        if z == 0 and p == 0:
+            continue
+        for role, r in (("zero", z), ("pole", p)):
+            if r.imag < 0 and abs(r.imag) > 1e-9 * abs(r):
+                continue  # the lower root of a pair left with its upper root
+            if not _take_factor(factors, role, r):
+                raise AnalysisError(f"cancelled {role} {r!r} rad/s matches no factor of the transfer function")
+    return FactoredNumeric(fn.gain, fn.origin_order, tuple(factors), fn.gain_formula)
 
 
 def polynomial_roots(c: Sequence[float]) -> np.ndarray:

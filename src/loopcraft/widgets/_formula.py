@@ -13,6 +13,10 @@ and is rebuilt only when its text changes. Corners are numbered as the
 factored form numbers them (zeros then poles, each by increasing frequency:
 ωz1, ωp1, ω0p1 with Qp1). The rows that the component being dragged moves,
 by :meth:`loopcraft.sensitivity.Sensitivity.moved_by`, are highlighted.
+
+A zero and a pole that cancel at the current values are left out of the
+table (the other rows keep their numbers) and named below it: "pole-zero
+cancellation at … Hz at these values". A pair on the jω axis shows Q = ∞.
 """
 
 from __future__ import annotations
@@ -54,11 +58,17 @@ class CornerLine:
 
 
 def corner_lines(form: FactoredForm) -> tuple[CornerLine, ...]:
-    """Number the corners as the factored form does (zeros, then poles, by frequency)."""
+    """Number the corners as the factored form does (zeros, then poles, by frequency).
+
+    Rows that cancel at these values are left out; the others keep the
+    numbers of the full form.
+    """
     counts = {"zero": 0, "pole": 0}
     out = []
     for c in form.corners:
         counts[c.role] += 1
+        if c.cancelled:
+            continue
         tag = ("z" if c.role == "zero" else "p") + str(counts[c.role])
         out.append(CornerLine(f"ω{tag}" if c.order == 1 else f"ω0{tag}", c.role, c))
     return tuple(out)
@@ -174,7 +184,9 @@ class FormulaView:
             extra = []
             if c.order == 2 and c.q is not None:
                 q_text = f" = <code>{html.escape(c.q_formula)}</code>" if c.q_formula else ""
-                extra.append(f"Q = {_num(c.q)}{q_text}")
+                extra.append(f"Q = {'∞' if c.q_infinite else _num(c.q)}{q_text}")
+            if c.q_infinite:
+                extra.append("on the jω axis")
             if c.rhp:
                 extra.append("right half plane")
             extra_html = ("<br>" + "; ".join(extra)) if extra else ""
@@ -195,5 +207,10 @@ class FormulaView:
                        "Move a component to highlight the corners it sets.</div>")
         head = (f'<tr><th style="{cell}">corner</th><th style="{cell}">formula (rad/s)</th>'
                 f'<th style="{cell}">value</th></tr>')
+        notes = "".join(
+            f'<div class="lc-cancellation" style="font-size:12px; margin:4px 0; color:{COLORS["cancelled"]}">'
+            f"{html.escape(n)}</div>"
+            for n in form.cancellation_notes
+        )
         return (f'<div style="font-family:{FONT_STACK}; font-size:12.5px; color:{COLORS["text"]}">{caption}'
-                f'<table style="border-collapse:collapse; width:100%">{head}{"".join(rows)}</table></div>')
+                f'<table style="border-collapse:collapse; width:100%">{head}{"".join(rows)}</table>{notes}</div>')

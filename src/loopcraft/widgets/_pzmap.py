@@ -17,7 +17,10 @@ so the axes do not jump while sliders move. Tick labels give the real
 values; the axis labels say the scale is signed-log.
 
 Coincident roots are drawn once with their multiplicity written beside the
-marker. Hovering a marker shows the root, its ω0 and Q, and the components
+marker. A zero and a pole that cancel at the current values (see
+:func:`loopcraft.factors.cancel_roots`) are not drawn as × and ○ but as one
+hollow diamond in their own colour, with a legend entry and a hover note; the
+× and ○ are the reduced transfer function. Hovering a marker shows the root, its ω0 and Q, and the components
 that set it: those whose normalized sensitivity ``|∂ln ω/∂ln x|`` exceeds
 0.05 (see :mod:`loopcraft.sensitivity`).
 """
@@ -27,13 +30,14 @@ from __future__ import annotations
 import html
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import bqplot as bq
 import ipywidgets as widgets
 import numpy as np
 
 from ..analysis import Analysis
+from ..factors import CANCEL_REL_TOL, JW_AXIS_REL_TOL
 from ..sensitivity import CornerSensitivity, Sensitivity
 from ..values import format_value
 from ._sync import TraitWriter
@@ -175,6 +179,10 @@ class PzFrame:
         Each drawn marker's root (rad/s) and multiplicity.
     x_range, y_range : (lo, hi)
         Axis ranges (signed-log units).
+    cancel_x, cancel_y : ndarray
+        Positions of the cancelled zero/pole pairs (signed-log coordinates).
+    cancel_groups : tuple of (complex, int)
+        Each cancelled pair's pole (rad/s) and multiplicity.
     """
 
     unit: str
@@ -187,6 +195,9 @@ class PzFrame:
     zero_groups: tuple[tuple[complex, int], ...]
     x_range: tuple[float, float]
     y_range: tuple[float, float]
+    cancel_x: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    cancel_y: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    cancel_groups: tuple[tuple[complex, int], ...] = ()
 
 
 def _match_rows(root: complex, role: str, rows: Sequence[CornerSensitivity]) -> list[CornerSensitivity]:
@@ -203,7 +214,32 @@ def _match_rows(root: complex, role: str, rows: Sequence[CornerSensitivity]) -> 
     return out
 
 
+def _describe_cancelled(root: complex, mult: int) -> str:
+    """Hover text of a cancelled zero/pole pair (``root`` is the pole, rad/s)."""
+    times = "" if mult == 1 else f"{mult} × "
+    w = abs(root)
+    if abs(root.imag) <= 1e-12 * w:
+        where = (f"s = {_signed_num(root.real)} rad/s &nbsp;·&nbsp; |s|/2π = "
+                 f"{html.escape(format_value(w / _TWO_PI, 'Hz', digits=4))}")
+    else:
+        where = (f"s = {_signed_num(root.real)} ± j{abs(root.imag):.4g} rad/s<br>"
+                 f"ω0/2π = {html.escape(format_value(w / _TWO_PI, 'Hz', digits=4))}")
+    hidden = ""
+    if root.real > JW_AXIS_REL_TOL * w:
+        hidden = (f'<br><b style="color:{COLORS["error"]}">the cancelled pole is in the right half plane: '
+                  "an unstable mode the response does not show</b>")
+    elif abs(root.real) <= JW_AXIS_REL_TOL * w:
+        hidden = (f'<br><b style="color:{COLORS["error"]}">the cancelled pole is on the jω axis: '
+                  "an undamped mode the response does not show</b>")
+    return (f'<div style="font-size:12px; line-height:1.45; color:{COLORS["text"]}">'
+            f"<b>{times}pole-zero cancellation</b> at these values<br>{where}<br>"
+            f'<span style="color:{COLORS["muted"]}">a zero and a pole coincide (within {CANCEL_REL_TOL:g} '
+            f"of |s|); H(s) is drawn without them</span>{hidden}</div>")
+
+
 def _describe(root: complex, mult: int, role: str, rows: Sequence[CornerSensitivity]) -> str:
+    if role == "cancelled":
+        return _describe_cancelled(root, mult)
     what = {"pole": "pole", "zero": "zero"}[role]
     times = {1: "", 2: "double ", 3: "triple "}.get(mult, f"{mult}-fold ")
     if root == 0:
@@ -217,10 +253,11 @@ def _describe(root: complex, mult: int, role: str, rows: Sequence[CornerSensitiv
                   f"{html.escape(format_value(f, 'Hz'))}")
     else:
         w0 = abs(root)
-        q = w0 / (2.0 * abs(root.real)) if root.real != 0 else math.inf
+        on_axis = abs(root.real) <= JW_AXIS_REL_TOL * w0
+        q_text = "∞ (on the jω axis)" if on_axis else f"{w0 / (2.0 * abs(root.real)):.3g}"
         head = f"<b>{times}complex {what} pair</b>"
         detail = (f"s = {_signed_num(root.real)} ± j{abs(root.imag):.4g} rad/s<br>"
-                  f"ω0/2π = {html.escape(format_value(w0 / _TWO_PI, 'Hz'))}, Q = {q:.3g}")
+                  f"ω0/2π = {html.escape(format_value(w0 / _TWO_PI, 'Hz'))}, Q = {q_text}")
     matched = _match_rows(root, role, rows)
     if root == 0:
         movers = "set by the topology (no component moves it)"
@@ -240,6 +277,12 @@ def _describe(root: complex, mult: int, role: str, rows: Sequence[CornerSensitiv
             f'<span style="color:{COLORS["muted"]}">{movers}</span></div>')
 
 
+def _drawn_roots(a: Analysis) -> np.ndarray:
+    """Every root the map draws, rad/s: the reduced poles and zeros and the cancelled pairs."""
+    tr = a.transfer
+    return np.concatenate([tr.reduced_poles, tr.reduced_zeros, tr.cancelled])
+
+
 def _signed_num(x: float, digits: int = 4) -> str:
     return f"{x:.{digits}g}".replace("-", _MINUS) if digits != 2 else f"{x:.2f}".replace("-", _MINUS)
 
@@ -253,6 +296,8 @@ class PoleZeroView:
         CSS class ``lc-pzmap``.
     poles, zeros : bqplot.Scatter
         Crosses and hollow circles; ``names`` carry the multiplicity ("2") or "".
+    cancelled : bqplot.Scatter
+        Hollow diamonds where a zero and a pole cancel at the current values.
     units : ipywidgets.ToggleButtons
         "Hz" (s/2π) or "rad/s".
     zoom : ipywidgets.ToggleButtons
@@ -281,11 +326,17 @@ class PoleZeroView:
                                 colors=[COLORS["zero"]], names=np.array([], dtype=str),
                                 display_names=True, names_unique=False, tooltip=self.tooltip,
                                 label_display_horizontal_offset=9.0, label_display_vertical_offset=-7.0)
+        self.cancelled = bq.Scatter(x=np.zeros(0), y=np.zeros(0), scales=sc, marker="diamond", fill=False,
+                                    stroke=COLORS["cancelled"], stroke_width=2.2, default_size=170,
+                                    colors=[COLORS["cancelled"]], names=np.array([], dtype=str),
+                                    display_names=True, names_unique=False, tooltip=self.tooltip,
+                                    label_display_horizontal_offset=9.0, label_display_vertical_offset=-7.0)
         grid = {"grid_color": COLORS["grid"], "tick_style": dict(AXIS_TICK_STYLE), "color": COLORS["muted"]}
         self.x_axis = bq.Axis(scale=self.x_scale, label="σ (Hz), signed-log scale", label_offset="36px", **grid)
         self.y_axis = bq.Axis(scale=self.y_scale, side="left", label="jω (Hz), signed-log scale",
                               label_offset="52px", **grid)
-        self.fig = bq.Figure(marks=[self.axes_cross, self.zeros, self.poles], axes=[self.x_axis, self.y_axis],
+        self.fig = bq.Figure(marks=[self.axes_cross, self.cancelled, self.zeros, self.poles],
+                             axes=[self.x_axis, self.y_axis],
                              fig_margin=dict(PZ_MARGIN), animation_duration=0, padding_x=0.0, padding_y=0.0,
                              background_style={"fill": COLORS["plot_bg"]},
                              layout=widgets.Layout(width="100%", height="330px", min_width="320px"))
@@ -301,7 +352,8 @@ class PoleZeroView:
         self.note = widgets.HTML()
         title = widgets.HTML(f'<span style="font-weight:600; color:{COLORS["text"]}">s-plane: '
                              f'<span style="color:{COLORS["pole"]}">× poles</span>, '
-                             f'<span style="color:{COLORS["zero"]}">○ zeros</span></span>')
+                             f'<span style="color:{COLORS["zero"]}">○ zeros</span>, '
+                             f'<span style="color:{COLORS["cancelled"]}">◇ pole-zero cancellation</span></span>')
         small = f'<span style="color:{COLORS["muted"]}; font-size:12px">{{}}</span>'
         controls = widgets.HBox([widgets.HTML(small.format("units")), self.units,
                                  widgets.HTML(small.format("&nbsp; zoom")), self.zoom],
@@ -313,12 +365,14 @@ class PoleZeroView:
         self.unit = "Hz"
         self.pole_mult: tuple[int, ...] = ()
         self.zero_mult: tuple[int, ...] = ()
-        self._groups: dict[str, tuple[tuple[complex, int], ...]] = {"pole": (), "zero": ()}
+        self.cancel_mult: tuple[int, ...] = ()
+        self._groups: dict[str, tuple[tuple[complex, int], ...]] = {"pole": (), "zero": (), "cancelled": ()}
         self._last: tuple[Analysis, Sensitivity | None] | None = None
         self._fresh = True
         self._pan = bq.interacts.PanZoom(scales={"x": [self.x_scale], "y": [self.y_scale]})
         self.poles.on_hover(lambda _m, content: self._hovered("pole", content))
         self.zeros.on_hover(lambda _m, content: self._hovered("zero", content))
+        self.cancelled.on_hover(lambda _m, content: self._hovered("cancelled", content))
         self.units.observe(self._on_units, names="value")
         self.zoom.observe(self._on_zoom, names="value")
 
@@ -330,8 +384,7 @@ class PoleZeroView:
     # -- design-level state ----------------------------------------------------------
     def set_design(self, a: Analysis) -> None:
         """Fix the signed-log reference for a new design (from its roots at the current values)."""
-        roots = np.concatenate([a.poles_rad_s, a.zeros_rad_s])
-        self.x0 = reference_scale(roots, self.units.value)
+        self.x0 = reference_scale(_drawn_roots(a), self.units.value)
         self._fresh = True
 
     # -- compute ----------------------------------------------------------------------
@@ -340,12 +393,13 @@ class PoleZeroView:
         unit = self.units.value
         div = _TWO_PI if unit == "Hz" else 1.0
         data = {}
-        for role, roots in (("pole", a.poles_rad_s), ("zero", a.zeros_rad_s)):
+        tr = a.transfer
+        for role, roots in (("pole", tr.reduced_poles), ("zero", tr.reduced_zeros), ("cancelled", tr.cancelled)):
             groups = tuple(group_roots(roots))
             r = np.array([g[0] for g in groups], dtype=complex)
             data[role] = (signed_log(r.real / div, self.x0), signed_log(r.imag / div, self.x0), groups)
-        xs = np.concatenate([data["pole"][0], data["zero"][0]])
-        ys = np.concatenate([data["pole"][1], data["zero"][1]])
+        xs = np.concatenate([data["pole"][0], data["zero"][0], data["cancelled"][0]])
+        ys = np.concatenate([data["pole"][1], data["zero"][1], data["cancelled"][1]])
         x_new = _fit(xs, 0.8, 0.6, symmetric=False)
         y_new = _fit(ys, 0.8, 0.7, symmetric=True)
         if self.zoom.value == "auto" and not self._fresh:
@@ -356,8 +410,8 @@ class PoleZeroView:
         else:
             x_range = (self.x_scale.min, self.x_scale.max)
             y_range = (self.y_scale.min, self.y_scale.max)
-        p, z = data["pole"], data["zero"]
-        return PzFrame(unit, self.x0, p[0], p[1], z[0], z[1], p[2], z[2], x_range, y_range)
+        p, z, c = data["pole"], data["zero"], data["cancelled"]
+        return PzFrame(unit, self.x0, p[0], p[1], z[0], z[1], p[2], z[2], x_range, y_range, c[0], c[1], c[2])
 
     # -- draw -----------------------------------------------------------------------------
     def draw(self, fr: PzFrame, source: tuple[Analysis, Sensitivity | None]) -> None:
@@ -371,12 +425,14 @@ class PoleZeroView:
         self._set_range(self.x_scale, self.x_axis, fr.x_range, fr.x0)
         self._set_range(self.y_scale, self.y_axis, fr.y_range, fr.x0)
         for mark, x, y, groups in ((self.poles, fr.pole_x, fr.pole_y, fr.pole_groups),
-                                   (self.zeros, fr.zero_x, fr.zero_y, fr.zero_groups)):
+                                   (self.zeros, fr.zero_x, fr.zero_y, fr.zero_groups),
+                                   (self.cancelled, fr.cancel_x, fr.cancel_y, fr.cancel_groups)):
             names = np.array([str(m) if m > 1 else "" for _r, m in groups], dtype=str)
             self._writer.set(mark, x=x, y=y, names=names)
         self.pole_mult = tuple(m for _r, m in fr.pole_groups)
         self.zero_mult = tuple(m for _r, m in fr.zero_groups)
-        self._groups = {"pole": fr.pole_groups, "zero": fr.zero_groups}
+        self.cancel_mult = tuple(m for _r, m in fr.cancel_groups)
+        self._groups = {"pole": fr.pole_groups, "zero": fr.zero_groups, "cancelled": fr.cancel_groups}
         self._last = source
         self.unit = fr.unit
         note = (f'<span style="color:{COLORS["muted"]}; font-size:11.5px">Axes: ±(1 + log10(|x|/x0)) beyond '
@@ -407,9 +463,9 @@ class PoleZeroView:
 
         Parameters
         ----------
-        role : {"pole", "zero"}
+        role : {"pole", "zero", "cancelled"}
         index : int
-            Index of the marker in the ``poles`` or ``zeros`` mark.
+            Index of the marker in the ``poles``, ``zeros`` or ``cancelled`` mark.
         """
         root, mult = self._groups[role][index]
         sens = self._last[1] if self._last is not None else None
@@ -425,7 +481,7 @@ class PoleZeroView:
         if self._last is None:
             return
         a, sens = self._last
-        self.x0 = reference_scale(np.concatenate([a.poles_rad_s, a.zeros_rad_s]), change["new"])
+        self.x0 = reference_scale(_drawn_roots(a), change["new"])
         self._fresh = True
         self.draw(self.frame(a, sens), (a, sens))
 
@@ -443,11 +499,16 @@ class PoleZeroView:
 
     # -- read back ---------------------------------------------------------------------------
     def state(self) -> dict:
-        """Poles and zeros (rad/s, complex, repeated by multiplicity) as drawn now."""
+        """Poles, zeros and cancelled pairs (rad/s, complex, repeated by multiplicity) as drawn now.
+
+        ``poles_rad_s`` and ``zeros_rad_s`` are the reduced transfer function;
+        ``cancelled_rad_s`` the diamonds (where a zero and a pole cancel).
+        """
         mul = _TWO_PI if self.unit == "Hz" else 1.0
         out = {}
         for key, mark, mult in (("poles_rad_s", self.poles, self.pole_mult),
-                                ("zeros_rad_s", self.zeros, self.zero_mult)):
+                                ("zeros_rad_s", self.zeros, self.zero_mult),
+                                ("cancelled_rad_s", self.cancelled, self.cancel_mult)):
             re = inverse_signed_log(np.asarray(mark.x, dtype=float), self.x0) * mul
             im = inverse_signed_log(np.asarray(mark.y, dtype=float), self.x0) * mul
             roots = [complex(r, i) for r, i, m in zip(re, im, mult, strict=True) for _ in range(m)]

@@ -27,6 +27,7 @@ COLORS = MappingProxyType({
     "loop": "#6e45a3",        # loop gain around the plant
     "zero": "#0f6b73",        # zeros (hollow circles)
     "pole": "#b53a3a",        # poles (crosses)
+    "cancelled": "#8a6d1f",   # a zero and a pole that cancel (diamonds), and the note saying so
     "margin": "#b53a3a",      # crossover, phase-margin marks
     "gain_margin": "#2f64a8", # gain-margin marks
     "opamp_loop": "#d0812a",  # the op-amp's own crossover
@@ -37,6 +38,7 @@ COLORS = MappingProxyType({
     "muted": "#5b6676",
     "highlight": "#fff1c9",   # formula rows moved by the dragged part
     "error": "#a12828",
+    "ok": "#1f7a45",          # the STABLE verdict
     "panel_bg": "#f4f6f9",
 })
 
