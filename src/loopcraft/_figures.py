@@ -14,6 +14,7 @@ from collections.abc import Sequence
 
 import numpy as np
 
+from ._text import mathtext_plain
 from .errors import LoopcraftError
 from .values import format_value
 
@@ -96,7 +97,7 @@ def _envelope_on(grid_hz: np.ndarray, env_f_hz: np.ndarray, env) -> tuple[np.nda
     return np.interp(u, ue, env.p1), np.interp(u, ue, env.p99)
 
 
-def bode_png(design, margins=None, amplifier_loop=None, *, spread=None, width_in: float = 8.0,
+def bode_png(design, margins=None, amplifier_loop=None, *, spread=None, stable: bool = True, width_in: float = 8.0,
              height_in: float = 6.4) -> bytes:
     """Magnitude and phase of the stage (ideal, asymptotes, actual) and of the loop, as PNG.
 
@@ -171,8 +172,8 @@ def bode_png(design, margins=None, amplifier_loop=None, *, spread=None, width_in
             ax_p.axhline(ref, color=_COLORS["ref"], lw=0.8, ls=":")
             ax_p.annotate("", xy=(c.f_hz, ph), xytext=(c.f_hz, ref),
                           arrowprops={"arrowstyle": "<->", "color": _COLORS["loop"], "lw": 1.2})
-            ax_p.text(c.f_hz * 1.15, (ph + ref) / 2, f"PM {c.phase_margin_deg:.1f}°", color=_COLORS["loop"],
-                      fontsize=9, va="center")
+            ax_p.text(c.f_hz * 1.15, (ph + ref) / 2, f"PM {c.phase_margin_deg:.1f}°" if stable else "UNSTABLE",
+                      color=_COLORS["loop"] if stable else "#a12828", fontsize=9, va="center")
             ax_m.plot([c.f_hz], [0.0], "o", color=_COLORS["loop"], ms=5)
             ax_m.annotate(f"fc {format_value(c.f_hz, 'Hz')}", xy=(c.f_hz, 0.0), xytext=(6, 8),
                           textcoords="offset points", color=_COLORS["loop"], fontsize=9)
@@ -183,8 +184,8 @@ def bode_png(design, margins=None, amplifier_loop=None, *, spread=None, width_in
             m = float(np.interp(math.log10(g.f_hz), np.log10(f), a.loop_mag_db))
             ax_m.annotate("", xy=(g.f_hz, m), xytext=(g.f_hz, 0.0),
                           arrowprops={"arrowstyle": "<->", "color": _COLORS["actual"], "lw": 1.2})
-            ax_m.text(g.f_hz * 1.15, m / 2, f"GM {g.gain_margin_db:.1f} dB", color=_COLORS["actual"], fontsize=9,
-                      va="center")
+            ax_m.text(g.f_hz * 1.15, m / 2, f"GM {g.gain_margin_db:.1f} dB" if stable else f"|L| {m:.1f} dB",
+                      color=_COLORS["actual"], fontsize=9, va="center")
     x = amplifier_loop.crossover_hz if amplifier_loop is not None else None
     if x is not None and lo <= x <= hi:
         ax_m.axvline(x, color=_COLORS["actual"], lw=0.8, ls=":")
@@ -203,7 +204,8 @@ def bode_png(design, margins=None, amplifier_loop=None, *, spread=None, width_in
         ax.grid(True, which="minor", color="#ececec", lw=0.4)
     ax_m.legend(loc="best", fontsize=8, framealpha=0.9)
     title = design.title or "Bode plot"
-    fig.suptitle(title if len(title) <= 90 else title[:87] + "…", fontsize=11)
+    title = title if len(title) <= 90 else title[:87] + "…"
+    fig.suptitle(mathtext_plain(title), fontsize=11)  # user text: drawn as itself, never as mathtext
     return _png(fig, canvas)
 
 

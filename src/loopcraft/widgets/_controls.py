@@ -27,7 +27,7 @@ import ipywidgets as widgets
 from traitlets import Unicode, validate
 
 from .._symbols import element_kind
-from ..errors import ComponentValueError
+from ..errors import ComponentValueError, LoopcraftError
 from ..eseries import nearest, neighbours, series_of
 from ..values import format_value, parse_value, unit_for
 from ._fields import ErrorNote
@@ -43,6 +43,7 @@ __all__ = [
     "slider_exponents",
     "compact_text",
     "component_order",
+    "failure_text",
 ]
 
 #: Choices of the snap dropdown ("off" or an E-series name).
@@ -110,6 +111,30 @@ def compact_text(value: float) -> str:
     return format_value(value, "", digits=4).replace(" ", "")
 
 
+def failure_text(err: BaseException) -> str:
+    """The message to show beside a field for an error caught at a widget boundary.
+
+    A :class:`~loopcraft.errors.LoopcraftError` already says what, where and what was
+    expected, so its own text is used. Any other error (an overflow, a recursion limit, a
+    division by zero the model did not foresee) is named by its kind and text, so the user
+    sees it beside the field instead of a traceback in the kernel log.
+
+    Parameters
+    ----------
+    err : BaseException
+
+    Returns
+    -------
+    str
+    """
+    if isinstance(err, LoopcraftError):
+        return str(err)
+    args = getattr(err, "args", ())
+    # OverflowError(34, 'Numerical result out of range') and the like: the text, not the tuple.
+    detail = args[1] if len(args) == 2 and isinstance(args[0], int) and isinstance(args[1], str) else str(err)
+    return f"cannot use this input ({type(err).__name__}: {detail or 'no detail'})"
+
+
 def component_order(names: tuple[str, ...]) -> tuple[str, ...]:
     """Designators sorted for display: resistors, capacitors, inductors, each by number."""
     kinds = {"resistor": 0, "capacitor": 1, "inductor": 2}
@@ -138,12 +163,19 @@ class SnapLogSlider(widgets.FloatLogSlider):
     move: the validator keeps the exact current value, so ``33e3`` stays
     33 kΩ rather than the nearest grid point. A real move (a key press or a
     drag) always lands at least half a step away.
+
+    A value that is not finite (NaN, ±inf) is refused: the current value is
+    kept and :attr:`on_reject`, when set, is called with the reason (NaN
+    would pass the clamp, since every comparison with NaN is false, and then
+    poison every later update).
     """
 
     series = Unicode("off", help="E-series to snap to, or 'off' (kernel side only)")
 
     def __init__(self, **kwargs) -> None:
         self._before_browser: float | None = None
+        #: Called with a message when a value is refused (set by the component row to show it).
+        self.on_reject: Callable[[str], None] | None = None
         super().__init__(**kwargs)
 
     def set_state(self, sync_data) -> None:
@@ -161,11 +193,16 @@ class SnapLogSlider(widgets.FloatLogSlider):
 
     @validate("value")
     def _validate_value(self, proposal):
-        """Clamp to the slider range, drop the browser's grid rounding, snap to the series.
+        """Refuse non-finite values, clamp to the slider range, drop the browser's grid rounding, snap.
 
-        Pure: returns the coerced value and sets no other trait.
+        Returns the coerced value and sets no other trait of the slider; a refused value is
+        reported through :attr:`on_reject`.
         """
         value = float(proposal["value"])
+        if not math.isfinite(value):
+            if self.on_reject is not None:
+                self.on_reject(f"{value!r} is not a value; expected a finite number (SI base units)")
+            return float(self.value)
         lo, hi = self.base**self.min, self.base**self.max
         value = min(max(value, lo), hi)
         before = self._before_browser
@@ -235,6 +272,8 @@ class ComponentControl:
         self._guard = False
         self._readout_html = ""
         self.entry.observe(self._on_entry, names="value")
+        self.slider.on_reject = lambda reason: self.error.show(f"{name}: {reason}; the value stays "
+                                                                f"{format_value(self.slider.value, self.unit)}")
         self.show_value()
 
     def close(self) -> None:
@@ -308,8 +347,24 @@ class ComponentControl:
                 f"range for a {self.kind} ({format_value(lo, self.unit)} .. {format_value(hi, self.unit)})"
             )
 
-    def set_value(self, v: float) -> None:
-        """Move the slider to ``v`` (SI base units), re-centring its range if ``v`` is outside it."""
+    def set_value(self, v: float) -> bool:
+        """Move the slider to ``v`` (SI base units), re-centring its range if ``v`` is outside it.
+
+        Returns
+        -------
+        bool
+            False when ``v`` is not a finite value > 0: the error is shown beside the field and
+            nothing moves.
+        """
+        given = v
+        try:
+            v = float(v)
+        except (TypeError, ValueError, OverflowError):
+            v = math.nan
+        if not (math.isfinite(v) and v > 0):
+            self.error.show(f"{self.name}: {given!r} is not a {self.kind} value; expected a finite value > 0 "
+                            f"({self.unit}); the value stays {format_value(self.slider.value, self.unit)}")
+            return False
         s = self.slider
         e = math.log10(v)
         if not s.min <= e <= s.max:
@@ -322,6 +377,7 @@ class ComponentControl:
             self.show_value()  # nothing moves; normalise the text and clear any error
         else:
             s.value = v
+        return True
 
     def set_series(self, series: str) -> None:
         """Snap to ``series`` ("off" or an E-series) from now on; re-validates the current value."""

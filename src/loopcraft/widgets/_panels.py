@@ -5,7 +5,9 @@ section, builds the section dict from them and validates it through the
 model's own reader (:meth:`loopcraft.opamp.OpAmp.from_dict`,
 :func:`loopcraft.plant.plant_from_dict`). A :class:`~loopcraft.errors.DesignFileError`
 is shown beside the field its key path names (``"plant.poles_hz[1]"`` → the
-``poles_hz`` field); the last good model stays in force and on screen.
+``poles_hz`` field); any other error, from the reader or from the explorer
+redrawing with the new model, is shown beside the field just edited. The last
+good model stays in force and on screen.
 
 Demo defaults come from an invented 48 V to 12 V bus converter.
 """
@@ -22,7 +24,7 @@ import ipywidgets as widgets
 from ..errors import DesignFileError
 from ..opamp import OpAmp
 from ..plant import Plant, plant_from_dict
-from ._controls import compact_text
+from ._controls import compact_text, failure_text
 from ._fields import ErrorNote, TextField
 from ._theme import COLORS
 
@@ -146,8 +148,8 @@ class OpAmpPanel:
         ])
         self.set_opamp(opamp)
         self.model.observe(self._on_model, names="value")
-        for f in self.fields.values():
-            f.text.observe(lambda _ch: self.apply(), names="value")
+        for key, f in self.fields.items():
+            f.text.observe(lambda _ch, key=key: self.apply(key), names="value")
 
     def set_opamp(self, opamp: OpAmp | None) -> None:
         """Show a model (from a design file) without calling back."""
@@ -191,13 +193,18 @@ class OpAmpPanel:
             d["second_pole_hz"] = self.fields["second_pole_hz"].value
         return d
 
-    def apply(self) -> bool:
-        """Validate the fields; on success store and report the model.
+    def apply(self, source: str | None = None) -> bool:
+        """Validate the fields; on success report the model and store it.
+
+        Parameters
+        ----------
+        source : str or None
+            The key of the field just edited (where an error without a key path is shown).
 
         Returns
         -------
         bool
-            False when an error is shown (the previous model stays).
+            False when an error is shown (the previous model stays in force).
         """
         if self._quiet:
             return False
@@ -206,12 +213,17 @@ class OpAmpPanel:
         self.error.clear()
         try:
             opamp = OpAmp.from_dict(self.section(), "opamp")
+            model = None if opamp.is_ideal else opamp
+            self._on_change(model)  # the explorer raises, keeping its last good state, if it cannot use it
         except DesignFileError as err:
-            key = field_of_key_path(err.key_path, "opamp")
+            key = field_of_key_path(err.key_path, "opamp") or (source or "")
             (self.fields[key].error if key in self.fields else self.error).show(str(err))
             return False
-        self.current = None if opamp.is_ideal else opamp
-        self._on_change(self.current)
+        except Exception as err:  # an overflow or a failed redraw: shown, never raised out of an observer
+            field = self.fields.get(source or "")
+            (field.error if field is not None else self.error).show(failure_text(err))
+            return False
+        self.current = model
         return True
 
 
@@ -265,7 +277,7 @@ class PlantPanel:
         self.set_plant(plant, feedback_gain)
         self.kind.observe(self._on_kind, names="value")
         for f in (*self.fields.values(), self.feedback):
-            f.text.observe(lambda _ch: self.apply(), names="value")
+            f.text.observe(lambda _ch, f=f: self.apply(f), names="value")
 
     def set_plant(self, plant: Plant | None, feedback_gain: float) -> None:
         """Show a plant (from a design file) without calling back."""
@@ -324,13 +336,18 @@ class PlantPanel:
                 d[key] = text
         return d
 
-    def apply(self) -> bool:
-        """Validate the fields; on success store and report the plant and feedback gain.
+    def apply(self, source: TextField | None = None) -> bool:
+        """Validate the fields; on success report the plant and feedback gain and store them.
+
+        Parameters
+        ----------
+        source : TextField or None
+            The field just edited (where an error without a key path is shown).
 
         Returns
         -------
         bool
-            False when an error is shown (the previous plant stays).
+            False when an error is shown (the previous plant stays in force).
         """
         if self._quiet:
             return False
@@ -338,6 +355,7 @@ class PlantPanel:
             f.error.clear()
         self.error.clear()
         kind = self.kind.value
+        note = source.error if source is not None else self.error
         try:
             section = self.section()
             plant = plant_from_dict(section, "plant") if section is not None else None
@@ -346,11 +364,18 @@ class PlantPanel:
             target = self.fields.get((kind, key))
             (target.error if target is not None else self.error).show(str(err))
             return False
+        except Exception as err:  # e.g. an overflow the reader did not catch
+            note.show(failure_text(err))
+            return False
         try:
             fb = parse_feedback_gain(self.feedback.value) if plant is not None else self.feedback_gain
         except DesignFileError as err:
             self.feedback.error.show(str(err))
             return False
+        try:
+            self._on_change(plant, fb)  # the explorer raises, keeping its last good state, if it cannot use it
+        except Exception as err:  # shown beside the field, never raised out of an observer
+            note.show(failure_text(err))
+            return False
         self.current, self.feedback_gain = plant, fb
-        self._on_change(plant, fb)
         return True

@@ -10,7 +10,10 @@
   or from an upload (JSON parsed with :func:`json.loads`, never evaluated,
   then :meth:`~loopcraft.design.Design.from_dict`).
 
-Errors leave the explorer's current design in place.
+Errors leave the explorer's current design in place and are shown beside the
+field: package errors with their own text, anything else that escapes parsing,
+loading or the explorer's redraw (a recursion limit on deeply nested JSON, an
+overflow) named by its kind (:func:`~loopcraft.widgets._controls.failure_text`).
 """
 
 from __future__ import annotations
@@ -24,6 +27,7 @@ from .._symbols import element_kind
 from ..design import Design, load, loads
 from ..errors import DesignFileError, LoopcraftError, ParseError
 from ..network import parse_network
+from ._controls import failure_text
 from ._fields import ErrorNote, TextField
 from ._theme import COLORS
 
@@ -68,6 +72,12 @@ def design_from_json_bytes(data: bytes, name: str) -> Design:
     except UnicodeDecodeError as err:
         raise DesignFileError(f"{name!r} is not UTF-8 text") from err
     return loads(text, name)
+
+
+def _about(name: str, err: Exception) -> str:
+    """The message for a file that did not load: the package's own text, else the file's name and the error."""
+    text = failure_text(err)
+    return text if isinstance(err, LoopcraftError) else f"{name!r}: {text}"
 
 
 class NetworkForm:
@@ -152,6 +162,9 @@ class NetworkForm:
             except ParseError as err:
                 f.error.show(str(err))
                 ok = False
+            except Exception as err:  # e.g. the recursion limit on thousands of nested parentheses
+                f.error.show(failure_text(err))
+                ok = False
         self.error.clear()
         if not ok:
             return None
@@ -159,9 +172,9 @@ class NetworkForm:
             design = Design.from_dict(network_design_dict(self.kind.value, self.first.value, self.feedback.value,
                                                           tuple(dict.fromkeys(names))))
             design.compile()  # derive now, so an undefined stage is reported here
-            self._on_design(design)
-        except LoopcraftError as err:
-            self.error.show(str(err))
+            self._on_design(design)  # the explorer raises, keeping its last good state, if it cannot draw it
+        except Exception as err:  # shown beside the form, never raised out of an observer
+            self.error.show(failure_text(err))
             return None
         return design
 
@@ -214,8 +227,8 @@ class FileLoader:
         try:
             design = load(p)
             self._on_design(design)
-        except LoopcraftError as err:
-            self.path.error.show(str(err))
+        except Exception as err:  # a DesignFileError, or anything else loading or drawing let escape
+            self.path.error.show(_about(p, err))
             return None
         return design
 
@@ -232,7 +245,7 @@ class FileLoader:
         try:
             design = design_from_json_bytes(content, name)
             self._on_design(design)
-        except LoopcraftError as err:
-            self.error.show(str(err))
+        except Exception as err:  # a DesignFileError, or anything else loading or drawing let escape
+            self.error.show(_about(name, err))
             return None
         return design

@@ -12,9 +12,13 @@ observer, :meth:`Explorer._on_slider`, which
    update message;
 4. rewrites the moved part's entry and readout under a guard (no echo).
 
-If step 1 or 2 fails the error is shown and nothing on screen changes. The
-frequency grid is fixed per design (re-derived on topology, design, op-amp or
-plant change only), so the axes do not jump while sliders move.
+If step 1 or 2 fails the error is shown and nothing on screen changes; if
+step 3 fails the last good frames are drawn again. A new design or new
+sections are installed all or nothing: when the first redraw fails, the
+previous design and its controls are put back and the error is raised to the
+field that asked for the change, which shows it. The frequency grid is fixed
+per design (re-derived on topology, design, op-amp or plant change only), so
+the axes do not jump while sliders move.
 """
 
 from __future__ import annotations
@@ -33,14 +37,14 @@ import numpy as np
 from ..amplifier import AmplifierLoop
 from ..analysis import Analysis, Analyzer
 from ..design import Design, load
-from ..errors import AnalysisError, LoopcraftError, TopologyError
+from ..errors import AnalysisError, ComponentValueError, LoopcraftError, TopologyError
 from ..opamp import OpAmp
 from ..plant import Plant
 from ..sensitivity import Sensitivity, sensitivity
 from ..topologies import TOPOLOGIES, topology
 from ._axes import view_grid_hz
 from ._bode import BodeView
-from ._controls import ComponentPanel, SnapLogSlider
+from ._controls import ComponentPanel, SnapLogSlider, failure_text
 from ._fields import ErrorNote
 from ._formula import FormulaView
 from ._panels import OpAmpPanel, PlantPanel
@@ -154,6 +158,8 @@ class Explorer(widgets.VBox):
         self._amp_shown: AmplifierLoop | None = None
         self._amp_stale = False
         self._settle_handle: asyncio.TimerHandle | None = None
+        self._installed = False  # True once a design is on screen (a failed switch can return to it)
+        self._last_frames: tuple | None = None  # (analyzer, frames) of the last good draw
 
         self.title = widgets.HTML()
         options = [(t.title, k) for k, t in TOPOLOGIES.items()]
@@ -266,35 +272,59 @@ class Explorer(widgets.VBox):
 
     # ------------------------------------------------------------------ design changes
     def _set_design(self, design: Design, key: str) -> None:
-        """Install a design: controls, analyzer (grid), symbolic panels; then draw once.
+        """Install a design: controls, analyzer (grid), symbolic panels; then draw once. All or nothing.
 
         Raises
         ------
         LoopcraftError
-            The design cannot be analysed; nothing has changed then.
+            The design cannot be analysed or drawn. The previous design, its controls and its
+            curves are then back on screen as they were (the first design of an explorer has
+            none: the error simply propagates).
         """
-        analyzer = _analyzer(design)
-        first = analyzer.update(design.values)
-        derivation = design.derivation
+        try:
+            analyzer = _analyzer(design)
+            first = analyzer.update(design.values)
+            design.derivation  # noqa: B018 - derive (cached) now, so a failure comes before any change
+            panel = ComponentPanel(design.values, self._on_snap, series=self._series)
+        except LoopcraftError:
+            raise
+        except Exception as err:  # a numeric failure the model did not foresee
+            raise AnalysisError(f"cannot analyse this design: {failure_text(err)}") from err
+        previous = (self._base, self._key, self._analyzer, self._first, self._panel) if self._installed else None
+        for c in panel.controls.values():
+            c.slider.observe(self._on_slider, names="value")
+        try:
+            self._install(design, key, analyzer, first, panel)
+            failure = self._redraw(None)
+        except Exception as err:  # the views could not take the new design
+            failure = failure_text(err)
+        if failure is None:
+            if previous is not None:
+                previous[-1].close()
+            self._installed = True
+            self._refresh_spread()
+            return
+        if previous is not None:  # put the last good design back, as it was
+            self._install(*previous)
+            self._redraw(None)
+        panel.close()
+        raise AnalysisError(failure)
+
+    def _install(self, design: Design, key: str, analyzer: Analyzer, first: Analysis, panel: ComponentPanel) -> None:
+        """Put a design's pieces in place (no drawing); the panel it replaces stays open for a rollback."""
         self._base = design
         self._analyzer = analyzer
-        old = getattr(self, "_panel", None)
-        self._panel = ComponentPanel(design.values, self._on_snap, series=self._series)
-        self._slider_names = {id(c.slider): n for n, c in self._panel.controls.items()}
-        for c in self._panel.controls.values():
-            c.slider.observe(self._on_slider, names="value")
-        self.components_box.children = [self._panel.box]
-        if old is not None:
-            old.close()
-        self.formula.set_design(derivation, first.transfer)
+        self._first = first
+        self._panel = panel
+        self._slider_names = {id(c.slider): n for n, c in panel.controls.items()}
+        self.components_box.children = [panel.box]
+        self.formula.set_design(design.derivation, first.transfer)
         self.bode.set_grid(analyzer.f_hz)
         self.pzmap.set_design(first)
         self._dragged = None
         self._key = key
         self._show_header(design, key)
         self._set_picker(key)
-        self._redraw(None)
-        self._refresh_spread()
 
     def _show_header(self, design: Design, key: str) -> None:
         t = TOPOLOGIES.get(key)
@@ -344,7 +374,11 @@ class Explorer(widgets.VBox):
         if key == LOADED_DESIGN:
             self._show_source(key)
             if self._loaded is not None:
-                self._set_design(self._loaded, LOADED_DESIGN)
+                try:
+                    self._set_design(self._loaded, LOADED_DESIGN)
+                except LoopcraftError as err:
+                    self.status.show(f"cannot show the loaded design with the current settings: {err}")
+                    self._set_picker(self._key)
             return
         try:
             self._set_design(self._with_current_sections(topology(key).design()), key)
@@ -372,19 +406,32 @@ class Explorer(widgets.VBox):
         self._rebuild(self._base.with_sections(plant=plant, feedback_gain=feedback_gain))
 
     def _rebuild(self, base: Design) -> None:
-        """New sections: rebuild the Analyzer (and its grid) at the current values, then redraw."""
+        """New sections: rebuild the Analyzer (and its grid) at the current values, then redraw.
+
+        Raises
+        ------
+        LoopcraftError
+            The sections cannot be analysed or drawn; the previous ones stay in force and on
+            screen (the panel that asked shows the error beside its field).
+        """
         moved = {n: v for n, v in self._panel.values().items() if v != base.values[n]}
         current = base.with_values(moved) if moved else base
         try:
             analyzer = _analyzer(current)
-        except LoopcraftError as err:
-            self.status.show(f"cannot analyse with these settings: {err}")
-            return
+        except Exception as err:  # a LoopcraftError, or a numeric failure the model did not foresee
+            raise AnalysisError(f"cannot analyse with these settings: {failure_text(err)}") from err
+        old_base, old_analyzer = self._base, self._analyzer
         self._base = base
         self._analyzer = analyzer
         self.bode.set_grid(analyzer.f_hz)
         self._amp_shown = None  # new sections: annotate the op-amp loop afresh
-        self._redraw(self._dragged)
+        failure = self._redraw(self._dragged)
+        if failure is not None:  # put the last good sections back, as they were
+            self._base, self._analyzer = old_base, old_analyzer
+            self.bode.set_grid(old_analyzer.f_hz)
+            self._amp_shown = None
+            self._redraw(self._dragged)
+            raise AnalysisError(f"cannot use these settings: {failure}")
         self._refresh_spread()
 
     # ------------------------------------------------------------------ the one observer
@@ -417,10 +464,28 @@ class Explorer(widgets.VBox):
                     c.show_value()
 
     def set_values(self, values: Mapping[str, float]) -> None:
-        """Set several component values (SI base units) and redraw once."""
+        """Set several component values (SI base units) and redraw once.
+
+        A value that is not finite and > 0 is refused: its part keeps its value and the error
+        is shown beside it; the other parts move.
+
+        Raises
+        ------
+        ComponentValueError
+            A designator the stage does not have (nothing moves then).
+        """
+        controls = self._panel.controls
+        unknown = [n for n in values if n not in controls]
+        if unknown:
+            raise ComponentValueError(f"no element named {unknown[0]!r} in this stage "
+                                      f"(elements: {', '.join(controls)})")
+        refused: dict[str, str] = {}
         with self._batched():
             for name, v in values.items():
-                self._panel.controls[name].set_value(float(v))
+                if not controls[name].set_value(v):
+                    refused[name] = controls[name].error.message
+        for name, message in refused.items():  # the redraw at the end of the batch clears the notes
+            controls[name].error.show(message)
 
     def _on_snap(self, series: str) -> None:
         self._series = series
@@ -465,7 +530,11 @@ class Explorer(widgets.VBox):
         a = self._analysis
         if a is None or not self._amp_stale:
             return
-        frame = self.bode.frame(a, self._fresh_amp(a))
+        try:
+            frame = self.bode.frame(a, self._fresh_amp(a))
+        except Exception as err:  # the annotation stays as it was; say why
+            self.status.show(f"cannot annotate the op-amp loop: {failure_text(err)}")
+            return
         with self.bode.mag_fig.hold_sync():
             self.bode.draw(frame)
 
@@ -474,10 +543,10 @@ class Explorer(widgets.VBox):
         self._spread_stale = False
         try:
             fr = self.spread.frame(self.design, self.f_hz)
-        except LoopcraftError as err:
+        except Exception as err:  # a LoopcraftError, or a numeric failure inside the Monte Carlo run
             self.spread.draw(None)
             self.spread.note.value = (f'<span style="color:{COLORS["error"]}; font-size:12px">'
-                                      f"{html.escape(str(err))}</span>")
+                                      f"{html.escape(failure_text(err))}</span>")
             return
         with self.bode.mag_fig.hold_sync(), self.bode.phase_fig.hold_sync(), self.pzmap.fig.hold_sync():
             self.spread.draw(fr)
@@ -500,8 +569,8 @@ class Explorer(widgets.VBox):
         try:
             # The derivation is cached per stage, so the design itself is the cheap handle.
             return sensitivity(self._base, values)
-        except LoopcraftError as err:
-            self.status.show(f"sensitivities unavailable at these values: {err}")
+        except Exception as err:  # optional: the views work without it (e.g. a zero of infinite Q)
+            self.status.show(f"sensitivities unavailable at these values: {failure_text(err)}")
             return None
 
     def _redraw(self, dragged: str | None) -> str | None:
@@ -520,17 +589,35 @@ class Explorer(widgets.VBox):
             sens = self._sensitivity(values)
             pz = self.pzmap.frame(a, sens)
             table, hl = self.formula.frame(a.transfer, sens, dragged)
-        except LoopcraftError as err:
-            msg = f"cannot analyse at these values: {err}"
+        except Exception as err:  # a LoopcraftError, or a numeric failure the model did not foresee
+            msg = f"cannot analyse at these values: {failure_text(err)}"
             self.status.show(msg)
             return msg
-        with self.bode.mag_fig.hold_sync(), self.bode.phase_fig.hold_sync(), self.pzmap.fig.hold_sync():
-            self.bode.draw(bode)
-            self.pzmap.draw(pz, (a, sens))
-            self.formula.draw(table, hl)
+        frames = (bode, pz, (a, sens), table, hl)
+        try:
+            self._draw(frames)
+        except Exception as err:  # a mark refused its data: put the last good frames back
+            msg = f"cannot draw at these values: {failure_text(err)}"
+            last = self._last_frames
+            if last is not None and last[0] is self._analyzer:
+                try:
+                    self._draw(last[1])
+                except Exception:  # the caller rolls back and redraws from scratch
+                    pass
+            self.status.show(msg)
+            return msg
+        self._last_frames = (self._analyzer, frames)
         self._analysis = a
         if sens is not None:
             self.status.clear()
         if dragged is not None:
             self._spread_after_move()
         return None
+
+    def _draw(self, frames: tuple) -> None:
+        """Assign computed frames to the marks, one ``hold_sync()`` per figure."""
+        bode, pz, source, table, hl = frames
+        with self.bode.mag_fig.hold_sync(), self.bode.phase_fig.hold_sync(), self.pzmap.fig.hold_sync():
+            self.bode.draw(bode)
+            self.pzmap.draw(pz, source)
+            self.formula.draw(table, hl)
