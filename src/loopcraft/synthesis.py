@@ -8,9 +8,15 @@ here read what those need from a plant, call them, and wrap the result in a
 saved like any design file.
 
 * :func:`compensator_design` and :func:`placed_compensator` return a
-  :class:`SynthesisResult`: the design plus the crossover and phase margin the
-  design actually achieves (analysed with the op-amp, when one is given), so a
-  caller sees at once how far a real op-amp moves the loop from the target.
+  :class:`SynthesisResult`: the design plus what it actually achieves
+  (analysed with the op-amp, when one is given): every crossover of the loop,
+  the worst phase margin among them (the one that governs) and the
+  closed-loop verdict of :mod:`loopcraft.stability`. A design whose closed
+  loop is not stable is refused with a :class:`~loopcraft.errors.SynthesisError`
+  naming the reason, unless the caller passes ``allow_unstable=True``; the
+  result then says UNSTABLE (or MARGINAL, or UNCERTAIN) first in its text,
+  its repr and its ``to_dict``. A target crossover above or near a
+  right-half-plane zero of the plant is warned about in ``.warnings``.
 * :func:`filter_design` and :func:`section_design` return a ``circuit``
   :class:`~loopcraft.design.Design` directly; the achieved section targets are
   in its notes.
@@ -32,11 +38,16 @@ import numpy as np
 from .asymptote import exact_mag_db, exact_phase_deg
 from .compensators import CompensatorDesign, k_factor, place
 from .design import FORMAT_VERSION, Design
-from .errors import SynthesisError
+from .errors import AnalysisError, SynthesisError
+from .margins import Crossover
+from .stability import Stability
 from .values import format_value
 
 __all__ = [
+    "RHP_ZERO_CROSSOVER_FRACTION",
+    "PHASE_MARGIN_SHORTFALL_DEG",
     "SynthesisResult",
+    "rhp_zero_warnings",
     "compensator_design",
     "placed_compensator",
     "filter_design",
@@ -46,10 +57,25 @@ __all__ = [
 
 _ROMAN = {1: "I", 2: "II", 3: "III"}
 
+#: A crossover is kept at or below this fraction of the plant's lowest right-half-plane
+#: zero; a target above it is warned about. The fraction is common practice, no source.
+#: The zero itself (the boost's ``fz = (1 - D)²·R/(2π·L)``) and why it limits the
+#: crossover (it adds gain and phase lag that no compensator can cancel) are in Erickson &
+#: Maksimovic, "Fundamentals of Power Electronics", 2nd ed., 2001, ch. 7-9.
+RHP_ZERO_CROSSOVER_FRACTION = 1.0 / 3.0
 
-@dataclass(frozen=True, eq=False)
+#: A worst phase margin this far below the target (degrees) is warned about.
+PHASE_MARGIN_SHORTFALL_DEG = 0.5
+
+
+@dataclass(frozen=True, eq=False, repr=False)
 class SynthesisResult:
     """A synthesized compensator design and what it achieves.
+
+    The achieved figures judge the worst crossover: a loop that crosses 0 dB
+    more than once is only as good as its smallest phase margin, and whether
+    the closed loop is stable at all comes from its poles
+    (:mod:`loopcraft.stability`), never from a margin.
 
     Parameters
     ----------
@@ -61,10 +87,12 @@ class SynthesisResult:
     target_phase_margin_deg : float or None
         The phase margin asked for, degrees (None for direct placement).
     achieved_crossover_hz : float or None
-        The loop crossover of the analysed design nearest (in log frequency) to
-        the target, Hz; None when the loop never crosses 0 dB in the analysed band.
+        The governing crossover of the analysed design, Hz: the one with the
+        smallest phase margin among every crossover; None when the loop never
+        crosses 0 dB in the analysed band.
     achieved_phase_margin_deg : float or None
-        Phase margin at that crossover, degrees.
+        The worst (smallest) phase margin over every crossover, degrees, on the
+        loop's continuous phase (never wrapped).
     k : float or None
         The k factor (Type II/III by the k-factor method; None otherwise).
     boost_deg : float
@@ -75,6 +103,19 @@ class SynthesisResult:
         Continuous phase of ``P·k_fb`` at the target crossover, degrees.
     compensator : CompensatorDesign
         The raw synthesis result.
+    crossovers : tuple of Crossover
+        Every crossover of the analysed loop (Hz, degrees), by increasing frequency.
+    verdict : {"stable", "unstable", "marginal", "uncertain"}
+        The closed-loop verdict; ``"uncertain"`` also when it could not be evaluated.
+    closed_loop_rhp_poles : int or None
+        Closed-loop poles in the right half-plane; None when not evaluated.
+    headline : str
+        One line, verdict first (``"UNSTABLE: 2 closed-loop poles in the right half-plane"``).
+    warnings : tuple of str
+        Plain-language warnings: a target crossover above or near a
+        right-half-plane zero of the plant, a worst phase margin short of the target.
+    stability : Stability or None
+        The full closed-loop analysis; None when it could not be evaluated.
     """
 
     design: Design
@@ -87,24 +128,70 @@ class SynthesisResult:
     plant_gain_db: float
     plant_phase_deg: float
     compensator: CompensatorDesign
+    crossovers: tuple[Crossover, ...] = ()
+    verdict: str = "uncertain"
+    closed_loop_rhp_poles: int | None = None
+    headline: str = "STABILITY UNCERTAIN (treat as not stable): not evaluated"
+    warnings: tuple[str, ...] = ()
+    stability: Stability | None = None
+
+    @property
+    def stable(self) -> bool:
+        """True only when the closed-loop verdict is ``"stable"``."""
+        return self.verdict == "stable"
+
+    @property
+    def governing_crossover(self) -> Crossover | None:
+        """The crossover with the smallest phase margin (the one that governs), or None."""
+        if not self.crossovers:
+            return None
+        return min(self.crossovers, key=lambda c: c.phase_margin_deg)
 
     def to_dict(self) -> dict[str, Any]:
-        """JSON-ready summary with the design file under ``"design"``."""
+        """JSON-ready summary, verdict first, with the design file under ``"design"``.
+
+        Frequencies in Hz, margins in degrees; ``"crossovers"`` lists every
+        crossover, ``"governing_crossover_hz"`` the one whose phase margin is
+        ``"achieved_phase_margin_deg"``; ``"stability"`` is
+        :meth:`loopcraft.stability.Stability.to_dict` (null when not evaluated).
+        """
+        gov = self.governing_crossover
         return {
+            "headline": self.headline,
+            "verdict": self.verdict,
+            "stable": self.stable,
+            "closed_loop_rhp_poles": self.closed_loop_rhp_poles,
+            "warnings": list(self.warnings),
             "target_crossover_hz": self.target_crossover_hz,
             "target_phase_margin_deg": self.target_phase_margin_deg,
             "achieved_crossover_hz": self.achieved_crossover_hz,
             "achieved_phase_margin_deg": self.achieved_phase_margin_deg,
+            "governing_crossover_hz": None if gov is None else float(gov.f_hz),
+            "crossovers": [
+                {"f_hz": float(c.f_hz), "phase_margin_deg": float(c.phase_margin_deg), "governs": c is gov}
+                for c in self.crossovers
+            ],
             "k": self.k,
             "boost_deg": self.boost_deg,
             "plant_gain_db": self.plant_gain_db,
             "plant_phase_deg": self.plant_phase_deg,
+            "stability": None if self.stability is None else self.stability.to_dict(),
             "design": self.design.to_dict(),
         }
 
+    def __repr__(self) -> str:
+        c = self.compensator
+        pm = "" if self.target_phase_margin_deg is None else f", {self.target_phase_margin_deg:g}°"
+        gov = self.governing_crossover
+        worst = ("no crossover" if gov is None else
+                 f"worst PM {gov.phase_margin_deg:.2f}° at {format_value(gov.f_hz, 'Hz', digits=4)}")
+        return (f"<SynthesisResult {self.headline}; Type {_ROMAN[c.type]} for "
+                f"{format_value(self.target_crossover_hz, 'Hz', digits=4)}{pm}; {worst}"
+                f"{'; ' + str(len(self.warnings)) + ' warning(s)' if self.warnings else ''}>")
+
     def __str__(self) -> str:
         c = self.compensator
-        lines = [f"Type {_ROMAN[c.type]} compensator: {self.design.title}"]
+        lines = [self.headline, f"Type {_ROMAN[c.type]} compensator: {self.design.title}"]
         target = f"target crossover {format_value(self.target_crossover_hz, 'Hz', digits=4)}"
         if self.target_phase_margin_deg is not None:
             target += f", phase margin {self.target_phase_margin_deg:.2f}°"
@@ -114,11 +201,19 @@ class SynthesisResult:
             lines.append(f"k = {self.k:.5g}, boost {self.boost_deg:.2f}°")
         else:
             lines.append(f"boost {self.boost_deg:.2f}°")
-        if self.achieved_crossover_hz is None:
+        gov = self.governing_crossover
+        if gov is None:
             lines.append("achieved: the loop gain does not cross 0 dB in the analysed band")
         else:
-            lines.append(f"achieved crossover {format_value(self.achieved_crossover_hz, 'Hz', digits=4)}, "
-                         f"phase margin {self.achieved_phase_margin_deg:.2f}°")
+            if len(self.crossovers) > 1:
+                items = ", ".join(
+                    f"{format_value(x.f_hz, 'Hz', digits=4)} (PM {x.phase_margin_deg:.2f}°"
+                    f"{', governs' if x is gov else ''})" for x in self.crossovers
+                )
+                lines.append(f"the loop crosses 0 dB {len(self.crossovers)} times: {items}")
+            lines.append(f"achieved (worst crossover) {format_value(gov.f_hz, 'Hz', digits=4)}, "
+                         f"phase margin {gov.phase_margin_deg:.2f}°")
+        lines += [f"warning: {w}" for w in self.warnings]
         return "\n".join(lines)
 
 
@@ -132,6 +227,12 @@ def _positive(name: str, value: object, unit: str) -> float:
     if not (math.isfinite(x) and x > 0):
         raise SynthesisError(f"{name} must be finite and > 0 {unit} (got {value!r})")
     return x
+
+
+def _flag(name: str, value: object) -> bool:
+    if not isinstance(value, bool):
+        raise SynthesisError(f"{name} must be True or False (got {value!r})")
+    return value
 
 
 def _resolve(plant_design_or_plant: Any, opamp: Any, feedback_gain: float | None) -> tuple[Any, Any, float]:
@@ -199,7 +300,8 @@ def _title(type_: int, fc_hz: float, pm_deg: float | None, plant: Any) -> str:
 
 
 def _compensator_result(cd: CompensatorDesign, plant: Any, opamp: Any, fb: float, title: str,
-                        pm_deg: float | None, gain_db: float, phase_deg: float) -> SynthesisResult:
+                        pm_deg: float | None, gain_db: float, phase_deg: float,
+                        allow_unstable: bool) -> SynthesisResult:
     doc: dict[str, Any] = {
         "loopcraft": FORMAT_VERSION,
         "title": title or _title(cd.type, cd.fc_hz, pm_deg, plant),
@@ -219,15 +321,88 @@ def _compensator_result(cd: CompensatorDesign, plant: Any, opamp: Any, fb: float
         "Values are exact; snap them to a standard series before building."
     )
     design = Design.from_dict(doc)
-    margins = design.analyze().loop.margins
-    best = None
-    for c in margins.crossovers:
-        dist = abs(math.log(c.f_hz / cd.fc_hz))
-        if best is None or dist < best[0]:
-            best = (dist, c)
-    fc_a = best[1].f_hz if best else None
-    pm_a = best[1].phase_margin_deg if best else None
-    return SynthesisResult(design, cd.fc_hz, pm_deg, fc_a, pm_a, cd.k, cd.boost_deg, gain_db, phase_deg, cd)
+    loop = design.analyze().loop
+    crossovers = tuple(loop.margins.crossovers)
+    gov = min(crossovers, key=lambda x: x.phase_margin_deg) if crossovers else None
+    st: Stability | None
+    try:
+        st = loop.stability
+        verdict, n_rhp, headline = st.verdict, int(st.closed_loop_rhp_poles), st.headline()
+    except AnalysisError as exc:  # could not be evaluated: never reported as stable
+        st, verdict, n_rhp = None, "uncertain", None
+        headline = f"STABILITY UNCERTAIN (treat as not stable): the closed loop could not be evaluated ({exc})"
+    warnings = list(rhp_zero_warnings(plant, cd.fc_hz))
+    if pm_deg is not None and gov is not None and gov.phase_margin_deg < pm_deg - PHASE_MARGIN_SHORTFALL_DEG:
+        warnings.append(
+            f"the worst phase margin {gov.phase_margin_deg:.2f}° (at {format_value(gov.f_hz, 'Hz', digits=4)}) "
+            f"falls short of the target {pm_deg:g}°"
+        )
+    result = SynthesisResult(
+        design, cd.fc_hz, pm_deg,
+        None if gov is None else gov.f_hz, None if gov is None else gov.phase_margin_deg,
+        cd.k, cd.boost_deg, gain_db, phase_deg, cd,
+        crossovers=crossovers, verdict=verdict, closed_loop_rhp_poles=n_rhp, headline=headline,
+        warnings=tuple(warnings), stability=st,
+    )
+    if verdict != "stable" and not allow_unstable:
+        raise SynthesisError(_refusal(result))
+    return result
+
+
+def _refusal(result: SynthesisResult) -> str:
+    """The reason a not-stable synthesis result is refused, verdict first."""
+    n = result.closed_loop_rhp_poles
+    if result.verdict == "unstable" and n:
+        why = f"the closed loop has {n} right-half-plane pole{'s' if n != 1 else ''}: {result.headline}"
+    elif result.verdict == "marginal":
+        why = f"the closed loop is not stable: {result.headline}"
+    else:
+        why = f"the closed loop's stability could not be established: {result.headline}"
+    if result.crossovers:
+        why += "; crossovers " + ", ".join(
+            f"{format_value(c.f_hz, 'Hz', digits=4)} (PM {c.phase_margin_deg:.2f}°)" for c in result.crossovers
+        )
+    for w in result.warnings:
+        why += f"; {w}"
+    return why + ". Lower the target crossover or change the type; pass allow_unstable=True to get the result marked"
+
+
+def rhp_zero_warnings(plant: Any, fc_hz: float) -> tuple[str, ...]:
+    """A warning when a crossover is placed above or near a right-half-plane zero of the plant.
+
+    A right-half-plane zero adds gain and phase lag together, which no
+    compensator can cancel (Erickson & Maksimovic, "Fundamentals of Power
+    Electronics", 2nd ed., 2001, ch. 7-9, for the boost's zero at
+    ``(1 - D)²·R/(2π·L)``). The crossover is kept at or below
+    :data:`RHP_ZERO_CROSSOVER_FRACTION` of the lowest such zero (common
+    practice, no source).
+
+    Parameters
+    ----------
+    plant : Plant
+        A :mod:`loopcraft.plant` model.
+    fc_hz : float
+        Crossover frequency, Hz.
+
+    Returns
+    -------
+    tuple of str
+        Empty, or one warning naming the zero (Hz) and the recommended ceiling (Hz).
+    """
+    zs = [f.f_hz for f in plant.factored().factors if f.role == "zero" and f.rhp]
+    if not zs:
+        return ()
+    fz = min(zs)
+    limit = RHP_ZERO_CROSSOVER_FRACTION * fz
+    if fc_hz <= limit:
+        return ()
+    where = "above" if fc_hz >= fz else "near"
+    return (
+        f"target crossover {format_value(fc_hz, 'Hz', digits=4)} is {where} the plant's right-half-plane zero "
+        f"at {format_value(fz, 'Hz', digits=4)}, which adds phase lag no compensator can cancel; keep the "
+        f"crossover at or below 1/{1.0 / RHP_ZERO_CROSSOVER_FRACTION:g} of it "
+        f"({format_value(limit, 'Hz', digits=4)}, common practice)",
+    )
 
 
 # --------------------------------------------------------------------------- compensators
@@ -243,14 +418,17 @@ def compensator_design(
     opamp: Any = None,
     feedback_gain: float | None = None,
     title: str = "",
+    allow_unstable: bool = False,
 ) -> SynthesisResult:
     """Synthesize a Type I, II or III error amplifier for a plant by the k-factor method.
 
     The plant's gain and phase at ``fc_hz`` (times the feedback gain) go to
     :func:`loopcraft.compensators.k_factor` (Venable 1983), which puts the
     crossover at ``fc_hz`` with the wanted phase margin for an ideal op-amp.
-    The design is then analysed (with the real op-amp when one is given) and
-    the crossover nearest the target reported with its phase margin.
+    The design is then analysed (with the real op-amp when one is given):
+    every crossover is reported, the worst phase margin among them governs,
+    and the closed loop's poles decide whether it is stable. A closed loop
+    that is not stable is refused (see ``allow_unstable``).
 
     Parameters
     ----------
@@ -273,25 +451,33 @@ def compensator_design(
         None takes the design's (or 1 for a bare plant).
     title : str
         Design title; a descriptive one is made up when empty.
+    allow_unstable : bool
+        False (default): a design whose closed loop is not stable (unstable,
+        marginal, or not established) raises :class:`SynthesisError`. True:
+        it is returned, its text, repr and ``to_dict`` saying so first.
 
     Returns
     -------
     SynthesisResult
-        ``.design`` is the :class:`~loopcraft.design.Design`; the achieved
-        crossover (Hz) and phase margin (degrees), k and boost ride along.
+        ``.design`` is the :class:`~loopcraft.design.Design`; every crossover
+        (Hz), the worst phase margin (degrees) and its crossover, the
+        closed-loop verdict, warnings (a crossover above or near a
+        right-half-plane zero of the plant), k and boost ride along.
 
     Raises
     ------
     SynthesisError
-        A missing plant, a bad argument, or a target that the type cannot
+        A missing plant, a bad argument, a target that the type cannot
         meet (passed through from :func:`~loopcraft.compensators.k_factor`,
-        naming the boost limit).
+        naming the boost limit), or a closed loop that is not stable (naming
+        its right-half-plane poles and every crossover) unless ``allow_unstable``.
     """
     plant, amp, fb = _resolve(plant_design_or_plant, opamp, feedback_gain)
     fc = _positive("fc_hz", fc_hz, "Hz")
     gain_db, phase_deg = plant_at(plant, fc, fb)
     cd = k_factor(fc, gain_db, phase_deg, phase_margin_deg, type=type, r1_ohm=r1_ohm)
-    return _compensator_result(cd, plant, amp, fb, title, float(phase_margin_deg), gain_db, phase_deg)
+    return _compensator_result(cd, plant, amp, fb, title, float(phase_margin_deg), gain_db, phase_deg,
+                               _flag("allow_unstable", allow_unstable))
 
 
 def placed_compensator(
@@ -305,6 +491,7 @@ def placed_compensator(
     opamp: Any = None,
     feedback_gain: float | None = None,
     title: str = "",
+    allow_unstable: bool = False,
 ) -> SynthesisResult:
     """Build a compensator with chosen zeros and poles that crosses over at ``fc_hz``.
 
@@ -324,7 +511,7 @@ def placed_compensator(
         two each for Type III (the second pair ``1/(2π (R1+R3) C3)``, ``1/(2π R3 C3)``).
     type : {1, 2, 3} or None
         Compensator type; None infers it from the number of zeros (0, 1, 2).
-    r1_ohm, opamp, feedback_gain, title
+    r1_ohm, opamp, feedback_gain, title, allow_unstable
         As for :func:`compensator_design`.
 
     Returns
@@ -335,8 +522,9 @@ def placed_compensator(
     Raises
     ------
     SynthesisError
-        A missing plant, a bad argument, or corners no component values can
-        give (passed through from :func:`~loopcraft.compensators.place`).
+        A missing plant, a bad argument, corners no component values can
+        give (passed through from :func:`~loopcraft.compensators.place`), or
+        a closed loop that is not stable unless ``allow_unstable``.
     """
     plant, amp, fb = _resolve(plant_design_or_plant, opamp, feedback_gain)
     fc = _positive("fc_hz", fc_hz, "Hz")
@@ -349,7 +537,8 @@ def placed_compensator(
     gain_db, phase_deg = plant_at(plant, fc, fb)
     cd = place(type, fc_hz=fc, gain_at_fc=10.0 ** (-gain_db / 20.0), zeros_hz=zeros_hz, poles_hz=poles_hz,
                r1_ohm=r1_ohm)
-    return _compensator_result(cd, plant, amp, fb, title, None, gain_db, phase_deg)
+    return _compensator_result(cd, plant, amp, fb, title, None, gain_db, phase_deg,
+                               _flag("allow_unstable", allow_unstable))
 
 
 # --------------------------------------------------------------------------- filters
