@@ -93,3 +93,54 @@ def test_parser_never_crashes(text):
         parse_network(text)
     except ParseError as err:
         assert 0 <= err.position <= len(text)
+
+
+# --------------------------------------------------------------------------- limits on hostile text
+def test_nesting_deeper_than_the_limit_is_a_parse_error_with_a_caret():
+    from loopcraft.network import MAX_NESTING
+
+    text = "(" * 331 + "R1" + ")" * 331  # deep enough to exhaust the recursive parser without the limit
+    with pytest.raises(ParseError, match=f"deeper than {MAX_NESTING} levels") as err:
+        parse_network(text)
+    assert err.value.position == MAX_NESTING  # the first '(' beyond the limit
+    assert parse_network("(" * MAX_NESTING + "R1" + ")" * MAX_NESTING).names == ("R1",)
+
+
+def test_more_parts_than_the_limit_is_a_parse_error_naming_the_limit():
+    from loopcraft.network import MAX_PARTS
+
+    ok = "+".join(f"R{i}" for i in range(MAX_PARTS))
+    assert len(parse_network(ok).names) == MAX_PARTS
+    text = ok + "+C99"
+    with pytest.raises(ParseError, match=f"more than {MAX_PARTS} elements") as err:
+        parse_network(text)
+    assert err.value.position == text.index("C99")
+
+
+def test_a_series_chain_of_thousands_is_refused_before_any_algebra():
+    from loopcraft.network import MAX_TEXT
+
+    text = " + ".join(f"R{i}" for i in range(3000))
+    with pytest.raises(ParseError, match=f"the limit is {MAX_TEXT}"):
+        parse_network(text)
+
+
+def test_derivation_turns_a_recursion_overflow_into_a_topology_error():
+    # A stage nested 12 deep is derived with Python's recursion limit just above the current
+    # stack depth: sympy recurses, and the derivation must answer with a package error.
+    import inspect
+    import sys
+
+    from loopcraft.derivation import derive
+    from loopcraft.errors import TopologyError
+    from loopcraft.stage import InvertingStage
+
+    deep = "R_d0" + "".join(f" || (R_d{i} + C_d{i}" for i in range(1, 12)) + ")" * 11
+    stage = InvertingStage(parse_network("R_in9"), parse_network(deep))
+    limit = sys.getrecursionlimit()
+    sys.setrecursionlimit(len(inspect.stack()) + 40)
+    try:
+        with pytest.raises(TopologyError, match="recursion limit"):
+            derive(stage)
+    finally:
+        sys.setrecursionlimit(limit)

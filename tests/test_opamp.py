@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import re
 
 import numpy as np
 import pytest
@@ -282,3 +283,37 @@ def test_module_docstring_carries_the_safety_note() -> None:
 
     assert mod.__doc__ is not None
     assert "hazardous voltages and stored energy" in " ".join(mod.__doc__.split())
+
+
+# --------------------------------------------------------------------------- accepted ranges
+@pytest.mark.parametrize(
+    "section, path, words",
+    [
+        ({"model": "single_pole", "a0_db": 1e308, "gbw_hz": 1e6}, "opamp.a0_db", "at most 240 dB"),
+        ({"model": "single_pole", "a0": 10**400, "gbw_hz": 1e6}, "opamp.a0", "beyond the float range"),
+        ({"model": "single_pole", "a0": 1e13, "gbw_hz": 1e6}, "opamp.a0", "at most 1e+12 V/V"),
+        ({"model": "single_pole", "a0": 1e5, "gbw_hz": 5e-324}, "opamp.gbw_hz", "1 mHz … 1 THz"),
+        ({"model": "two_pole", "a0": 1e5, "gbw_hz": 1e308, "second_pole_hz": 1e308}, "opamp.gbw_hz", "1 THz"),
+        ({"model": "two_pole", "a0": 1e5, "gbw_hz": 5e-324, "phase_margin_deg": 60}, "opamp.gbw_hz", "1 mHz"),
+        ({"model": "ideal", "output_swing_v": 10**400}, "opamp.output_swing_v", "beyond the float range"),
+        ({"model": "ideal", "slew_rate_v_per_us": 1e9}, "opamp.slew_rate_v_per_us", "1e+06 V/µs"),
+        ({"model": "two_pole", "a0": 1e12, "gbw_hz": 1e12, "phase_margin_deg": 90}, "opamp.phase_margin_deg",
+         "outside 1 mHz"),
+    ],
+)
+def test_values_outside_the_documented_ranges_are_refused_with_key_path(section, path, words):
+    with pytest.raises(DesignFileError, match=re.escape(words)) as err:
+        OpAmp.from_dict(section)
+    assert err.value.key_path == path
+
+
+def test_the_extreme_corners_of_the_ranges_give_finite_figures():
+    # The bare amplifier's unity-gain frequency and phase margin from the exact formulas stay finite
+    # at the ends of the accepted ranges (IEEE 754 doubles; from memory).
+    for a0 in (1.0 + 1e-9, 1e12):
+        for gbw in (1e-3, 1e12):
+            for f2 in (max(gbw / a0, 1e-3), 1e15):
+                op = OpAmp("two_pole", a0=a0, gbw_hz=gbw, second_pole_hz=f2)
+                assert math.isfinite(op.unity_gain_hz) and op.unity_gain_hz > 0
+                assert math.isfinite(op.phase_margin_deg)
+                assert np.all(np.isfinite(op.gain(2j * math.pi * np.array([1e-3, 1e12]))))

@@ -3,13 +3,14 @@
 from __future__ import annotations
 
 import math
+import re
 
 import mpmath
 import numpy as np
 import pytest
 from scipy import signal
 
-from loopcraft.errors import AnalysisError, ComponentValueError, DesignFileError
+from loopcraft.errors import ComponentValueError, DesignFileError
 from loopcraft.plant import (
     PLANT_KINDS,
     BoostVoltageMode,
@@ -332,9 +333,13 @@ def test_polynomial_wide_root_spread_matches_mpmath(den: list[float]) -> None:
 
 def test_polynomial_roots_too_spread_is_an_error() -> None:
     # Roots 1e-20 and 1e20 rad/s cannot both be resolved in double precision next to the
-    # origin (common practice, no source): refuse rather than misplace a root.
-    with pytest.raises(AnalysisError):
-        PolynomialPlant((1.0,), (1.0, 1e20, 1.0)).factored()
+    # origin (common practice, no source): refuse rather than misplace a root. The plant is
+    # factored when it is built, so the refusal comes at construction and on load.
+    with pytest.raises(ComponentValueError, match="cannot be factored"):
+        PolynomialPlant((1.0,), (1.0, 1e20, 1.0))
+    with pytest.raises(DesignFileError) as err:
+        plant_from_dict({"kind": "polynomial", "num": [1], "den": [1, 1e20, 1]})
+    assert err.value.key_path == "plant.den"
 
 
 def test_polynomial_gain_is_normalized() -> None:
@@ -481,3 +486,51 @@ def test_module_docstring_carries_the_safety_note() -> None:
 
     assert mod.__doc__ is not None
     assert "hazardous voltages and stored energy" in " ".join(mod.__doc__.split())
+
+
+# --------------------------------------------------------------------------- accepted ranges
+@pytest.mark.parametrize(
+    "plant, path, words",
+    [
+        ({**BUCK, "l_h": 5e-324}, "plant.l_h", "1 pH … 1 kH"),
+        ({**BUCK, "c_f": 1e308}, "plant.c_f", "1 fF … 1 kF"),
+        ({**BUCK, "load_ohm": 1e308, "esr_ohm": 1e308}, "plant.load_ohm", "1 µΩ … 1 TΩ"),
+        ({**BUCK, "esr_ohm": 5e-324}, "plant.esr_ohm", "(or 0)"),
+        ({**BUCK, "vin_v": 10**400}, "plant.vin_v", "beyond the float range"),
+        ({"kind": "boost_vm", "vin_v": 12, "duty": 0.5, "l_h": 1e-5, "c_f": 1e308, "load_ohm": 10, "ramp_v": 1},
+         "plant.c_f", "1 kF"),
+        ({"kind": "boost_vm", "vin_v": 1e-3, "vout_v": 1e6, "l_h": 1e-5, "c_f": 1e-4, "load_ohm": 10, "ramp_v": 1},
+         "plant.vout_v", "duty cycle D = 1 − vin/vout"),
+        ({"kind": "peak_current", "load_ohm": 5e-324, "c_f": 1e308, "ri_ohm": 1e-300}, "plant.load_ohm", "1 µΩ"),
+        ({"kind": "general", "gain": 1, "poles_hz": [5e-324]}, "plant.poles_hz[0]", "1 nHz"),
+        ({"kind": "general", "gain": 1e308, "poles_hz": [1e308]}, "plant.gain", "1e+30"),
+        ({"kind": "general", "gain": 1, "origin_order": -1000}, "plant.origin_order", "-4 … 4"),
+        ({"kind": "general", "gain": 1, "poles_hz": [1.0] * 17}, "plant.poles_hz", "limit is 16"),
+        ({"kind": "polynomial", "num": [1e294], "den": [1, 1e294]}, "plant.den", "outside 1 nHz"),
+        ({"kind": "polynomial", "num": [1], "den": [1.0] * 40}, "plant.den", "limit is 17"),
+    ],
+)
+def test_values_outside_the_documented_ranges_are_refused_with_key_path_and_range(plant, path, words):
+    with pytest.raises(DesignFileError, match=re.escape(words)) as err:
+        plant_from_dict(plant)
+    assert err.value.key_path == path
+
+
+def test_every_corner_of_the_ranges_gives_a_finite_model():
+    # All 2^7 combinations of range ends for the buck and the boost: every corner frequency, Q and
+    # gain must be a finite, positive double (IEEE 754; from memory), so no curve can be NaN.
+    from itertools import product
+
+    from loopcraft import plant as pm
+
+    spans = {"vin_v": pm.VOLTAGE, "l_h": pm.INDUCTANCE, "c_f": pm.CAPACITANCE, "load_ohm": pm.RESISTANCE,
+             "ramp_v": pm.RAMP, "esr_ohm": pm.PARASITIC}
+    for cls, last in ((BuckVoltageMode, ("dcr_ohm", pm.PARASITIC)), (BoostVoltageMode, ("duty", pm.DUTY))):
+        fields = {**spans, last[0]: last[1]}
+        for ends in product(*[(s.lo if s.lo > 0 else 0.0, s.hi) for s in fields.values()]):
+            fn = cls(**dict(zip(fields, ends, strict=True))).factored()
+            assert math.isfinite(fn.gain) and fn.gain > 0
+            for f in fn.factors:
+                assert math.isfinite(f.omega_rad_s) and f.omega_rad_s > 0
+                assert f.q is None or (math.isfinite(f.q) and f.q > 0)
+            assert np.all(np.isfinite(fn.response(np.array([1e-3, 1.0, 1e6, 1e12]))))

@@ -1,3 +1,5 @@
+import math
+
 import mpmath
 import pytest
 import sympy as sp
@@ -77,3 +79,24 @@ def test_numeric_factor_sensitivity_matches_mpmath():
 def test_integrator_constant_row_absent():
     # A pure integrator has no corners, hence no sensitivity rows (common practice, no source).
     assert inv("R1", "C1", R1="10k", C1="10n").sensitivity().rows == ()
+
+
+def test_ideal_lc_pair_has_omega0_sensitivities_and_no_q_row():
+    # Feedback C1 + L1 over R1: H = -(1 + s²·L1·C1)/(s·C1·R1), a zero pair on the jω axis at
+    # ω0 = 1/sqrt(L1·C1) with no damping term (Q infinite). S of ω0 to L1 and C1 is -1/2 each
+    # (exponents of the product; Schaumann & Van Valkenburg, "Design of Analog Filters", 2001, ch. 3),
+    # 0 to R1; Q has no finite value, so it has no row.
+    sens = inv("R1", "C1 + L1", R1="1k", C1="1n", L1="1m").sensitivity()
+    rows = {r.label: r for r in sens.rows}
+    assert set(rows) == {"ω0z1"}
+    s = rows["ω0z1"].by_component
+    assert s["C1"] == pytest.approx(-0.5, abs=1e-12) and s["L1"] == pytest.approx(-0.5, abs=1e-12)
+    assert s["R1"] == 0
+    assert rows["ω0z1"].value == pytest.approx(1 / math.sqrt(1e-9 * 1e-3), rel=1e-12)
+
+
+def test_every_sensitivity_is_finite_or_the_call_is_refused():
+    # With a damped pair next to the lossless one every row is a finite number (IEEE 754; from memory).
+    sens = inv("R1", "(C1 + L1) || R2", R1="1k", C1="1n", L1="1m", R2="10k").sensitivity()
+    for r in sens.rows:
+        assert math.isfinite(r.value) and all(math.isfinite(v) for v in r.by_component.values())

@@ -181,11 +181,13 @@ def test_report_text_and_json():
     r = check(integrator_loop({"phase_margin_min_deg": 45, "crossover_hz": ["1k", "100 kHz"],
                                "gain_margin_min_db": 10}))
     text = str(r)
-    assert text.startswith("Spec check: PASS (3 items, 0 failed)")
+    # Three items asked for, plus the implicit closed-loop stability item listed first.
+    assert text.startswith("Spec check: PASS (4 items, 0 failed)")
     assert "phase_margin_min_deg" in text and "required" in text
     d = json.loads(json.dumps(r.to_dict(), allow_nan=False))
-    assert d["passed"] and d["items"][0]["actual"] == pytest.approx(pm, abs=1e-8)
-    assert d["items"][1]["actual"] is None  # unbounded gain margin
+    assert d["items"][0]["name"] == "stable" and d["items"][0]["passed"]
+    assert d["passed"] and d["items"][1]["actual"] == pytest.approx(pm, abs=1e-8)
+    assert d["items"][2]["actual"] is None  # unbounded gain margin
     assert item(r, "crossover_hz").required == "1 kHz … 100 kHz"
 
 
@@ -231,3 +233,53 @@ def test_parse_spec_defaults():
     assert s.samples == 2000 and dict(s.corners) == {"ωp1": (1.0, 2.0)}
     assert s.item_names == ("corners.ωp1",) and not s.is_empty
     assert parse_spec({}).is_empty
+
+
+# --------------------------------------------------------------------------- stability in the yield
+
+
+def test_sample_pass_fails_unstable_samples_whatever_their_margins():
+    import numpy as np
+
+    from loopcraft.errors import AnalysisError
+    from loopcraft.spec import sample_pass
+
+    sp = parse_spec({"phase_margin_min_deg": 45, "gain_margin_min_db": 6})
+    q = {"phase_margin_deg": np.array([60.0, 60.0, 30.0, 60.0]), "gain_margin_db": np.full(4, 20.0),
+         "crossover_hz": np.full(4, 1e3), "corners": {}, "dc_gain_db": np.zeros(4),
+         "stable": np.array([True, False, True, False])}
+    masks = sample_pass(sp, q, 4)
+    assert list(masks) == ["stable", "phase_margin_min_deg", "gain_margin_min_db"]
+    assert masks["stable"].tolist() == [True, False, True, False]
+    # A margin of an unstable loop is not a margin: those samples fail the margin items too.
+    assert masks["phase_margin_min_deg"].tolist() == [True, False, False, False]
+    assert masks["gain_margin_min_db"].tolist() == [True, False, True, False]
+    passed = np.logical_and.reduce(list(masks.values()))
+    assert passed.tolist() == [True, False, False, False]
+    # Without a plant there is no loop to be stable: no implicit item.
+    plain = sample_pass(sp, {**q, "stable": None}, 4)
+    assert "stable" not in plain and plain["phase_margin_min_deg"].tolist() == [True, True, False, True]
+    with pytest.raises(AnalysisError, match=r"quantities\['stable'\] must be a bool array of shape \(4,\)"):
+        sample_pass(sp, {**q, "stable": np.ones(3, dtype=bool)}, 4)
+
+
+def test_yield_counts_unstable_samples_as_failures():
+    # L = K/(s(1 + s/p)²) with K = G/(R1 C1): the closed loop is stable iff K < 2p (Routh–Hurwitz on
+    # s³/p² + 2s²/p + s + K: Ogata, "Modern Control Engineering", 5th ed., 2010, ch. 5). Nominal
+    # K = 1.95p, R1 ±5 %: stable iff R1 > R1·1.95/2, i.e. a uniform fraction (1 + 0.05 - 0.975)/0.1.
+    p = 2 * math.pi * 1e3
+    c1 = 1.0 / (1.95 * p * R1)
+    d = lc.Design.from_dict({
+        "loopcraft": 1, "stage": {"kind": "inverting", "input": "R1", "feedback": "C1"},
+        "values": {"R1": R1, "C1": c1}, "plant": {"kind": "general", "gain": 1.0, "poles_hz": [1e3, 1e3]},
+        "tolerances": {"R1": "5%"},
+        "spec": {"phase_margin_min_deg": -60, "yield_min": 0.5, "samples": 4000},
+    })
+    exact = (1.05 - 0.975) / 0.1
+    n = 4000
+    sp = monte_carlo(d, n, seed=5)
+    # Every sample's phase margin is above -60°, so only instability fails samples.
+    assert (sp.phase_margin_deg >= -60).all()
+    assert abs(sp.yield_fraction - exact) < 4 * math.sqrt(exact * (1 - exact) / n)
+    assert sp.yield_fraction == sp.item_yield["stable"] == sp.item_yield["phase_margin_min_deg"]
+    assert item(check(d, seed=5), "yield_min").actual == pytest.approx(sp.yield_fraction)

@@ -418,3 +418,281 @@ def test_phase_far_from_nominal_is_still_continuous():
         f0 = 1 / (2 * np.pi * ri * np.sqrt(100e-9 * 1e-9))
         x = f / f0
         np.testing.assert_allclose(b.stage_phase_deg[i], -np.degrees(np.arctan2(x / 5, 1 - x * x)), atol=1e-9)
+
+
+# --------------------------------------------------------------------------- worst case: interior search
+
+
+def _dip_phase_deg(f):
+    """Phase of L = (1 + s/ω3k)/(s·τ·(1 + s/ω1k)(1 + s/ω30k)) plus 180° at f (Hz): the phase margin
+    if the loop crossed there (sum of first-order factor angles; common practice, no source)."""
+    return 90 + np.degrees(np.arctan(f / 3e3) - np.arctan(f / 1e3) - np.arctan(f / 30e3))
+
+
+def dip_design(tau_scale=1.0, tol=None):
+    """Integrator stage (R1 in, C1 feedback) around (1 + s/ω3k)/((1 + s/ω1k)(1 + s/ω30k)), with R1·C1
+    chosen so that |L| = 1 at the phase dip (times ``tau_scale``)."""
+    from scipy.optimize import minimize_scalar
+
+    res = minimize_scalar(lambda lf: _dip_phase_deg(10**lf), bounds=(2.5, 4.0), method="bounded",
+                          options={"xatol": 1e-12})
+    f_dip = 10**res.x
+    s = 1j * f_dip
+    tau = abs((1 + s / 3e3) / ((1 + s / 1e3) * (1 + s / 30e3))) / (2 * math.pi * f_dip)
+    d = lc.Design.from_dict({
+        "loopcraft": 1, "stage": {"kind": "inverting", "input": "R1", "feedback": "C1"},
+        "values": {"R1": 10e3, "C1": tau * tau_scale / 10e3},
+        "plant": {"kind": "general", "gain": 1.0, "zeros_hz": [3e3], "poles_hz": [1e3, 30e3]},
+        "tolerances": tol or {"R*": "1%", "C*": "5%"},
+    })
+    return d, f_dip, float(_dip_phase_deg(f_dip)), tau
+
+
+def test_worst_case_phase_margin_minimum_at_the_dip_inside_the_box():
+    # The crossover depends on τ = R1·C1 only, so the phase margin over the box is least on the curve
+    # R1·C1 = τ_dip (where |L| = 1 at the phase dip) whenever that curve crosses the box. Every vertex
+    # moves τ away from it: a vertex-only search reports a larger minimum.
+    d, f_dip, pm_dip, tau = dip_design()
+    wc = worst_case(d)
+    e = wc.extremes["phase_margin_deg"]
+    assert e.nominal == pytest.approx(pm_dip, abs=1e-7)
+    assert e.min <= e.nominal and e.min == pytest.approx(pm_dip, abs=1e-7)
+    assert e.min_location == "interior" and e.min_stable is True
+    # Nominal 3 % above τ_dip: the dip curve crosses the inside of the box, away from nominal.
+    d, f_dip, pm_dip, tau = dip_design(1.03)
+    wc = worst_case(d)
+    e = wc.extremes["phase_margin_deg"]
+    assert e.nominal - pm_dip > 1e-3
+    assert e.min == pytest.approx(pm_dip, abs=1e-6)
+    assert e.min_location in ("face", "interior")
+    assert e.min_values["R1"] * e.min_values["C1"] == pytest.approx(tau, rel=1e-3)
+    assert {k: abs(v) <= 1 for k, v in e.min_position.items()} == {"R1": True, "C1": True}
+    vertex_min = min(_dip_phase_deg(wc.extremes["crossover_hz"].min), _dip_phase_deg(wc.extremes["crossover_hz"].max))
+    assert e.min < vertex_min - 1e-3
+    # Location and position in the JSON form and the repr.
+    out = json.loads(json.dumps(wc.to_dict(), allow_nan=False))
+    pm = out["extremes"]["phase_margin_deg"]
+    assert pm["min_location"] == e.min_location and pm["min_position"] == dict(e.min_position)
+    assert pm["min_stable"] is True and out["nominal_stable"] is True and out["unstable_found"] is False
+    assert f"{e.min:.6g} ({e.min_location})" in repr(wc)
+    assert "min_location=" in repr(e)
+
+
+def _box_brute_force(d, params, tol, n_random=20_000, seed=0, chunk=4000):
+    """Every quantity at all 2^n vertices and n_random seeded uniform points of the tolerance box
+    (brute force over the box, common practice, no source). Margins are -inf where the closed loop
+    is not stable. Returns {quantity: values} and the points (normalized)."""
+    n = len(params)
+    verts = 1.0 - 2.0 * ((np.arange(2**n)[:, None] >> np.arange(n)[None, :]) & 1)
+    z = np.vstack([verts, np.random.default_rng(seed).uniform(-1, 1, (n_random, n))])
+    out = {}
+    for lo in range(0, z.shape[0], chunk):
+        zz = z[lo:lo + chunk]
+        vals = {p: d.values[p] * (1 + tol[p] * zz[:, k]) for k, p in enumerate(params) if p != "gbw"}
+        gbw = None
+        if "gbw" in params:
+            gbw = d.opamp.gbw_hz * (1 + tol["gbw"] * zz[:, params.index("gbw")])
+        b = evaluate_batch(d, vals, gbw_hz=gbw)
+        q = dict(b.corners)
+        q["dc_gain_db"] = b.dc_gain_db
+        if b.crossover_hz is not None:
+            q["crossover_hz"] = b.crossover_hz
+            q["phase_margin_deg"] = np.where(b.stable, b.phase_margin_deg, -np.inf)
+            q["gain_margin_db"] = np.where(b.stable, b.gain_margin_db, -np.inf)
+        for k, v in q.items():
+            out.setdefault(k, []).append(v)
+    return {k: np.concatenate(v) for k, v in out.items()}, z
+
+
+SALLEN_KEY = {
+    "loopcraft": 1,
+    "stage": {"kind": "circuit",
+              "elements": [["R1", "in", "a"], ["R2", "a", "b"], ["C1", "a", "out"], ["C2", "b", "gnd"]],
+              "opamps": [{"plus": "b", "minus": "out", "out": "out"}], "input": "in", "output": "out"},
+    "values": {"R1": "10k", "R2": "10k", "C1": "22n", "C2": "4.7n"},
+}
+
+
+@pytest.mark.parametrize("case", ["dip", "sallen_key", "type3_loop"])
+def test_worst_case_is_at_least_as_extreme_as_brute_force(case):
+    if case == "dip":
+        d = dip_design(1.03)[0]
+    elif case == "sallen_key":
+        # Q = sqrt(R1 R2 C1 C2)/(C2 (R1 + R2)) peaks where R1 = R2 (Schaumann & Van Valkenburg,
+        # "Design of Analog Filters", 2001, ch. 4; from memory): with R2 = 1.1·R1 nominal and ±10 %
+        # that ridge runs inside the box, through no vertex.
+        d = lc.Design.from_dict({**SALLEN_KEY, "values": {**SALLEN_KEY["values"], "R2": "11k"},
+                                 "tolerances": {"R*": "10%", "C*": "10%"}})
+    else:
+        d = lc.load(EXAMPLES / "bus48_guarded.json").with_sections(tolerances={"R*": "1%", "C*": "5%"})
+    wc = worst_case(d)
+    params = list(wc.parameters)
+    assert len(params) <= 6
+    bf, _z = _box_brute_force(d, params, wc.tolerances)
+    assert set(bf) == set(wc.extremes)
+    for q, v in bf.items():
+        e = wc.extremes[q]
+        fin = v[np.isfinite(v)]
+        spread = float(np.ptp(fin)) if fin.size else 0.0
+        slack = 2e-3 * spread + 1e-9 * max(abs(e.nominal), 1.0) if math.isfinite(e.nominal) else 0.0
+        assert e.min <= np.nanmin(v) + slack, (q, e.min, np.nanmin(v))
+        assert e.max >= np.nanmax(v) - slack, (q, e.max, np.nanmax(v))
+        if math.isfinite(e.nominal):
+            assert e.min <= e.nominal <= e.max, q
+        # Every reported extreme is a point of the box whose value it is.
+        for pos in (e.min_position, e.max_position):
+            assert all(-1.0 <= x <= 1.0 for x in pos.values())
+    if case == "sallen_key":
+        e = wc.extremes["Qp1"]
+        assert e.max_location == "face"  # C1 high, C2 low, R1 = R2 inside their ranges
+        assert e.max_signs["C1"] == 1 and e.max_signs["C2"] == -1
+        assert e.max_values["R1"] == pytest.approx(e.max_values["R2"], rel=2e-3)
+        r, c1, c2 = 10e3, 22e-9 * 1.1, 4.7e-9 * 0.9
+        assert e.max == pytest.approx(math.sqrt(r * r * c1 * c2) / (c2 * 2 * r), rel=1e-6)
+
+
+# --------------------------------------------------------------------------- closed-loop stability
+
+
+def _routh_rhp(den_desc):
+    """Sign changes in the first column of the Routh array of a polynomial (descending powers), in exact
+    rational arithmetic on the float coefficients: the number of right-half-plane roots (Ogata, "Modern
+    Control Engineering", 5th ed., 2010, ch. 5). None when a first-column entry is zero."""
+    from fractions import Fraction
+
+    c = [Fraction(float(x)) for x in den_desc]
+    n = len(c) - 1
+    w = n // 2 + 1
+    r0 = c[0::2] + [Fraction(0)] * (w - len(c[0::2]))
+    r1 = c[1::2] + [Fraction(0)] * (w - len(c[1::2]))
+    first = [r0[0], r1[0]]
+    for _ in range(n - 1):
+        if r1[0] == 0:
+            return None
+        r2 = [(r1[0] * r0[i + 1] - r0[0] * r1[i + 1]) / r1[0] for i in range(w - 1)] + [Fraction(0)]
+        r0, r1 = r1, r2
+        first.append(r1[0])
+    if any(x == 0 for x in first):
+        return None
+    return sum((a > 0) != (b > 0) for a, b in zip(first[:-1], first[1:], strict=True))
+
+
+def edge_design(tol=None, k_over_p=1.9):
+    """L = K/(s(1 + s/p)²), K = G/(R1 C1): the closed loop s³/p² + 2s²/p + s + K is stable iff K < 2p
+    (Routh–Hurwitz: Ogata, "Modern Control Engineering", 5th ed., 2010, ch. 5)."""
+    fp, g, r1 = 1e3, 1.0, 10e3
+    p = 2 * math.pi * fp
+    d = lc.Design.from_dict({
+        "loopcraft": 1, "stage": {"kind": "inverting", "input": "R1", "feedback": "C1"},
+        "values": {"R1": r1, "C1": g / (k_over_p * p * r1)},
+        "plant": {"kind": "general", "gain": g, "poles_hz": [fp, fp]},
+        "tolerances": tol or {"R*": "5%", "C*": "5%"},
+    })
+    return d, p, g
+
+
+def test_stable_nominal_with_unstable_samples_is_reported():
+    d, p, g = edge_design()
+    sp = monte_carlo(d, 4000, seed=2, spec={"phase_margin_min_deg": -90})
+    k = g / (sp.values["R1"] * sp.values["C1"])
+    expected = k < 2 * p
+    assert sp.nominal_stable is True
+    assert 0.05 < sp.unstable_fraction < 0.3
+    assert np.array_equal(sp.stable, expected)
+    assert np.array_equal(sp.n_rhp[~expected], np.full((~expected).sum(), 2))  # the complex pair crosses
+    # The margins alone would pass every sample here; the yield is the stable fraction.
+    assert (sp.phase_margin_deg >= -90).all()
+    assert sp.item_yield["stable"] == pytest.approx(expected.mean())
+    assert sp.yield_fraction == pytest.approx(expected.mean())
+    assert list(sp.item_yield)[0] == "stable"
+    out = json.loads(json.dumps(sp.to_dict(), allow_nan=False))
+    assert out["unstable_fraction"] == pytest.approx(1 - expected.mean())
+    assert out["n_unstable"] == int((~expected).sum()) and out["nominal_stable"] is True
+    assert "unstable=" in repr(sp)
+    # Batch: the same mask for explicitly given samples.
+    b = evaluate_batch(d, {"R1": sp.values["R1"][:50], "C1": sp.values["C1"][:50]})
+    assert np.array_equal(b.stable, expected[:50])
+    assert b.unstable_fraction == pytest.approx(1 - expected[:50].mean())
+
+
+def test_worst_case_margins_fail_at_unstable_points():
+    d, p, g = edge_design()
+    wc = worst_case(d)
+    # Vertices: K = G/(R1 C1) at (1 ± t)(1 ± t); unstable where K >= 2p (Ogata 2010, ch. 5).
+    t = 0.05
+    k0 = 1.9 * p
+    n_bad = sum(k0 / ((1 + a * t) * (1 + b * t)) >= 2 * p for a in (-1, 1) for b in (-1, 1))
+    assert n_bad == 1 and wc.n_unstable == n_bad and wc.unstable_fraction == pytest.approx(n_bad / 4)
+    assert wc.nominal_stable is True and wc.unstable_found is True
+    for q in ("phase_margin_deg", "gain_margin_db"):
+        e = wc.extremes[q]
+        assert e.min == -math.inf and e.min_stable is False
+        assert e.max_stable is True and e.max >= e.nominal
+    out = json.loads(json.dumps(wc.to_dict(), allow_nan=False))
+    assert out["extremes"]["phase_margin_deg"]["min"] is None
+    assert out["extremes"]["phase_margin_deg"]["min_stable"] is False
+    # Well inside the stable region nothing is unstable.
+    d, p, g = edge_design(k_over_p=1.0)
+    wc = worst_case(d)
+    assert wc.n_unstable == 0 and wc.unstable_found is False
+    assert wc.extremes["phase_margin_deg"].min > 0
+
+
+@pytest.mark.parametrize("case", ["edge", "type3_high_gain"])
+def test_closed_loop_root_count_matches_numpy_roots_and_routh(case):
+    if case == "edge":
+        d, _p, _g = edge_design({"R*": "5%", "C*": "5%"})
+    else:
+        # The Type III loop with 3x the divider gain: a 7th-order closed loop, stable at nominal,
+        # unstable in about a third of the samples.
+        d = lc.load(EXAMPLES / "bus48_loop.json").with_sections(
+            feedback_gain=3.0, tolerances={"R*": "10%", "C*": "20%", "gbw": "30%"})
+    sp = monte_carlo(d, 400, seed=3)
+    assert 0 < sp.unstable_fraction < 1
+    idx = np.arange(0, 400, 9)
+    counts = {0: 0, 1: 0}
+    for i in idx:
+        v = {k: float(x[i]) for k, x in sp.values.items() if k != "gbw_hz"}
+        dd = d.with_values(v)
+        if "gbw_hz" in sp.values:
+            dd = dd.with_sections(opamp=replace(d.opamp, gbw_hz=float(sp.values["gbw_hz"][i])))
+        # The scalar path: L/(1 + L) of loopcraft.loop, denominator D + N in descending powers.
+        _num, den = dd.analyze().loop.closed_loop_tf()
+        r = np.roots(den)
+        by_roots = int(np.sum(r.real >= -1e-9 * np.abs(r)))
+        by_routh = _routh_rhp(den)
+        assert by_routh is not None
+        assert sp.n_rhp[i] == by_roots == by_routh, (i, sp.n_rhp[i], by_roots, by_routh)
+        counts[int(by_roots > 0)] += 1
+    assert counts[0] and counts[1]  # both kinds among the checked samples
+
+
+def test_origin_factor_common_to_plant_and_stage_cancels():
+    # Plant with a zero at the origin times an integrator: L = K/((1 + s/p1)(1 + s/p2)) after the
+    # common s cancels, so 1 + L has roots in the left half plane for every K > 0 (Routh, Ogata 2010,
+    # ch. 5: all coefficients of a second-order polynomial positive); without the cancellation a
+    # root would sit at the origin.
+    d = lc.Design.from_dict({
+        "loopcraft": 1, "stage": {"kind": "inverting", "input": "R1", "feedback": "C1"},
+        "values": {"R1": "10k", "C1": "10n"},
+        "plant": {"kind": "general", "gain": 1e-4, "origin_order": 1, "poles_hz": [1e3, 5e3]},
+        "tolerances": {"R*": "5%", "C*": "5%"},
+    })
+    sp = monte_carlo(d, 200, seed=1)
+    assert sp.nominal_stable is True and sp.stable.all()
+
+
+def test_unstable_plant_fails_whatever_its_phase_margin():
+    # L = K/(s(1 - s/p)): 1 + L ∝ -s²/p + s + K has coefficients of both signs, so a root lies in the
+    # right half plane for every K > 0 (Ogata 2010, ch. 5), although 180° + ∠L = 90° + atan(ω/p) > 90°.
+    d = lc.Design.from_dict({
+        "loopcraft": 1, "stage": {"kind": "inverting", "input": "R1", "feedback": "C1"},
+        "values": {"R1": "10k", "C1": "10n"},
+        "plant": {"kind": "general", "gain": 1.0, "rhp_poles_hz": [1e3]},
+        "tolerances": {"R*": "5%", "C*": "5%"},
+    })
+    sp = monte_carlo(d, 300, seed=1, spec={"phase_margin_min_deg": 45})
+    assert sp.nominal["phase_margin_deg"] > 90 and (sp.phase_margin_deg > 90).all()
+    assert sp.nominal_stable is False and not sp.stable.any()
+    assert np.array_equal(sp.n_rhp, np.ones(300, dtype=int))
+    assert sp.item_yield == {"stable": 0.0, "phase_margin_min_deg": 0.0} and sp.yield_fraction == 0.0

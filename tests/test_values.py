@@ -116,3 +116,36 @@ def test_letter_codes_match_decimal(whole, frac, prefix):
     # IEC 60062: the letter stands in for the decimal point: 4k7 == 4.7k.
     code = f"{whole}{prefix}{frac}"
     assert parse_value(code) == parse_value(f"{whole}.{frac}{prefix}")
+
+
+# --------------------------------------------------------------------------- hostile numbers
+@pytest.mark.parametrize("value", [10**400, -(10**400), 2**1024])
+def test_integers_beyond_the_float_range_are_refused_not_overflowed(value):
+    # The largest double is about 1.8e308 (IEEE 754; from memory), so float(10**400) raises
+    # OverflowError; parse_value must answer with its own error and a short description.
+    with pytest.raises(ComponentValueError, match="R1") as err:
+        parse_value(value, name="R1")
+    assert "digits" in str(err.value) and len(str(err.value)) < 200
+
+
+def test_huge_fraction_is_refused():
+    from fractions import Fraction
+
+    with pytest.raises(ComponentValueError, match="outside the accepted range"):
+        parse_value(Fraction(10**400, 3), name="C1")
+
+
+def test_text_longer_than_the_limit_is_refused_briefly():
+    from loopcraft._numbers import MAX_NUMBER_TEXT
+
+    text = "1" * 5000
+    with pytest.raises(ComponentValueError, match=f"at most {MAX_NUMBER_TEXT} characters") as err:
+        parse_value(text, name="R1")
+    assert len(str(err.value)) < 200
+    assert parse_value(" " * 10 + "4k7" + " " * 10) == 4700.0  # padding within the limit is fine
+
+
+@pytest.mark.parametrize("text", ["1e400", "inf", "nan", "1e-400"])
+def test_text_that_is_not_a_finite_positive_number_is_refused(text):
+    with pytest.raises(ComponentValueError):
+        parse_value(text, name="R1")

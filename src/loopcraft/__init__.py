@@ -16,6 +16,7 @@ from .errors import (
     AnalysisError,
     ComponentValueError,
     DesignFileError,
+    FileWriteError,
     LoopcraftError,
     ParseError,
     SynthesisError,
@@ -25,6 +26,7 @@ from .evaluator import Evaluator, TransferResult
 from .factored import FactoredForm
 from .factors import Factor, FactoredNumeric
 from .network import Network, parse_network
+from .stability import Stability, closed_loop_stability
 from .stage import CircuitStage, InvertingStage, NonInvertingStage, stage_from_dict
 from .topologies import TOPOLOGIES, topology, topology_names
 from .values import format_value, parse_value
@@ -50,6 +52,7 @@ __all__ = [
     "Design",
     "DesignFileError",
     "Evaluator",
+    "FileWriteError",
     "Explorer",
     "Factor",
     "FactoredForm",
@@ -59,8 +62,10 @@ __all__ = [
     "Network",
     "NonInvertingStage",
     "ParseError",
+    "Stability",
     "SynthesisError",
     "TOPOLOGIES",
+    "closed_loop_stability",
     "TopologyError",
     "TransferResult",
     "format_value",

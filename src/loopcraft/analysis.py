@@ -232,6 +232,8 @@ def loop_summary_lines(lp: PlantLoop) -> list[str]:
     """The loop's verdict first, then every crossover and phase crossover, in words (for the CLI)."""
     m, st = lp.margins, lp.stability
     lines = [f"loop: {st.headline()}"]
+    if st.stable:
+        lines.append(f"  {st.gain_range_text()}")
     lines += [f"  note: {n}" for n in st.notes]
     qualifier = "" if st.stable else " (not a margin: the closed loop is not stable)"
     for c in m.crossovers:

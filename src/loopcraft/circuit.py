@@ -54,7 +54,10 @@ Structural rules (checked when a :class:`Circuit` is built)
 * an op-amp has distinct ``+`` and ``-`` pins, its output is not ``gnd`` or
   the input node, no two op-amps share an output, and its output reaches one
   of its inputs through elements or other op-amps (a feedback path);
-* the output is reached from the input through elements and op-amps.
+* the output is reached from the input through elements and op-amps;
+* at most :data:`MAX_ELEMENTS` (64) elements and :data:`MAX_OPAMPS` (16)
+  op-amps (far above any real stage; the limits keep hostile input from
+  exhausting the solver).
 
 Numerically singular equations and an identically zero transfer function are
 found when solving and raise :class:`~loopcraft.errors.TopologyError`.
@@ -74,10 +77,16 @@ from sympy.polys.domains import ZZ
 from sympy.polys.matrices import DomainMatrix
 from sympy.polys.rings import PolyElement, PolyRing
 
+from ._numbers import shown
 from ._symbols import S, component_symbol, element_kind
 from .errors import ComponentValueError, TopologyError
 
-__all__ = ["GROUND", "NODE_RE", "OpampPins", "Circuit"]
+__all__ = ["GROUND", "NODE_RE", "OpampPins", "Circuit", "MAX_ELEMENTS", "MAX_OPAMPS"]
+
+#: Most R, C and L elements in one circuit.
+MAX_ELEMENTS = 64
+#: Most op-amps in one circuit.
+MAX_OPAMPS = 16
 
 #: The ground node.
 GROUND = "gnd"
@@ -90,7 +99,7 @@ def _check_node(value: Any, what: str) -> str:
     """Validate one node name and return it."""
     if not isinstance(value, str) or NODE_RE.fullmatch(value) is None:
         raise TopologyError(
-            f"{what}: node name {value!r} is not valid; expected non-empty text of "
+            f"{what}: node name {shown(value)} is not valid; expected non-empty text of "
             "letters, digits and underscores ('gnd' is ground)"
         )
     if value != GROUND and value.lower() == GROUND:
@@ -253,14 +262,16 @@ class Circuit:
 def _normalize_elements(elements: Any) -> tuple[tuple[str, str, str], ...]:
     if isinstance(elements, str) or not isinstance(elements, Iterable):
         raise TopologyError(
-            f"elements must be a sequence of (designator, node_a, node_b) (got {elements!r})"
+            f"elements must be a sequence of (designator, node_a, node_b) (got {shown(elements)})"
         )
     out: list[tuple[str, str, str]] = []
     seen: dict[str, int] = {}
     for i, e in enumerate(elements):
+        if i >= MAX_ELEMENTS:
+            raise TopologyError(f"more than {MAX_ELEMENTS} elements in one circuit (the limit)")
         if isinstance(e, str) or not isinstance(e, Sequence) or len(e) != 3:
             raise TopologyError(
-                f"elements[{i}] = {e!r}; expected (designator, node_a, node_b)"
+                f"elements[{i}] = {shown(e)}; expected (designator, node_a, node_b)"
             )
         name, a, b = e
         element_kind(name)  # raises ComponentValueError for a bad designator
@@ -282,15 +293,17 @@ def _normalize_elements(elements: Any) -> tuple[tuple[str, str, str], ...]:
 
 def _normalize_opamps(opamps: Any) -> tuple[OpampPins, ...]:
     if isinstance(opamps, str) or not isinstance(opamps, Iterable):
-        raise TopologyError(f"opamps must be a sequence of OpampPins (got {opamps!r})")
+        raise TopologyError(f"opamps must be a sequence of OpampPins (got {shown(opamps)})")
     out: list[OpampPins] = []
     for i, o in enumerate(opamps):
+        if i >= MAX_OPAMPS:
+            raise TopologyError(f"more than {MAX_OPAMPS} op-amps in one circuit (the limit)")
         if isinstance(o, OpampPins):
             out.append(o)
         elif not isinstance(o, str) and isinstance(o, Sequence) and len(o) == 3:
             out.append(OpampPins(*o))
         else:
-            raise TopologyError(f"opamps[{i}] = {o!r}; expected OpampPins(plus, minus, out)")
+            raise TopologyError(f"opamps[{i}] = {shown(o)}; expected OpampPins(plus, minus, out)")
     return tuple(out)
 
 

@@ -10,6 +10,10 @@ Subcommands::
     loopcraft spread FILE --samples 10000 --seed 1 [--json]
 
 Errors go to standard error with exit status 2.
+
+Every ``--json`` output is valid JSON (RFC 8259: no bare ``NaN`` or
+``Infinity``): a number that is not finite at that point, such as the
+magnitude in dB at a pole on the jω axis, is written as ``null``.
 """
 
 from __future__ import annotations
@@ -23,6 +27,8 @@ from typing import Any
 
 import numpy as np
 
+from ._numbers import json_safe
+from ._text import terminal_safe
 from .analysis import analysis_sections, response_columns
 from .design import Design, load
 from .errors import LoopcraftError
@@ -36,13 +42,19 @@ def _pairs(roots: np.ndarray) -> list[list[float]]:
 
 
 def analyze_dict(design: Design) -> dict[str, Any]:
-    """The ``analyze --json`` document for a design (roots in rad/s, corners in Hz)."""
+    """The ``analyze --json`` document for a design (roots in rad/s, corners in Hz).
+
+    ``zeros_rad_s`` and ``poles_rad_s`` are the reduced transfer function;
+    ``cancelled_rad_s`` lists where a zero and a pole cancel (the pole, one
+    entry per root). A factor on the jω axis has ``"q": null, "q_infinite": true``.
+    """
     ff = design.factored()
     tr = ff.result
     out: dict[str, Any] = {
         "title": design.title,
-        "zeros_rad_s": _pairs(tr.zeros),
-        "poles_rad_s": _pairs(tr.poles),
+        "zeros_rad_s": _pairs(tr.reduced_zeros),
+        "poles_rad_s": _pairs(tr.reduced_poles),
+        "cancelled_rad_s": _pairs(tr.cancelled),
         "factored": ff.to_dict(),
         "dc_gain": _finite_or_text(tr.dc_gain()),
         "hf_gain": _finite_or_text(tr.hf_gain()),
@@ -71,18 +83,20 @@ def response_dict(design: Design, f_hz: Sequence[float]) -> dict[str, Any]:
 def _print_summary(design: Design) -> None:
     ff = design.factored()
     tr = ff.result
-    print(design.title or "(untitled design)")
+    print(terminal_safe(design.title or "(untitled design)"))  # user text: no control characters
     print(f"stage: {design.stage.kind}")
     print()
     print(ff)
     print()
-    print("zeros (rad/s):", ", ".join(_root_text(z) for z in sorted(tr.zeros, key=abs)) or "none")
-    print("poles (rad/s):", ", ".join(_root_text(p) for p in sorted(tr.poles, key=abs)) or "none")
+    print("zeros (rad/s):", ", ".join(_root_text(z) for z in sorted(tr.reduced_zeros, key=abs)) or "none")
+    print("poles (rad/s):", ", ".join(_root_text(p) for p in sorted(tr.reduced_poles, key=abs)) or "none")
+    if tr.cancelled.size:
+        print("cancelled (rad/s):", ", ".join(_root_text(p) for p in sorted(tr.cancelled, key=abs)))
     dc, hf = tr.dc_gain(), tr.hf_gain()
     print(f"DC gain: {_gain_text(dc)}   high-frequency gain: {_gain_text(hf)}")
     extra = _extra_analysis(design)
     for line in extra.get("summary_lines", []):
-        print(line)
+        print(terminal_safe(line))
 
 
 def _root_text(r: complex) -> str:
@@ -136,7 +150,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         if args.command == "analyze":
             design = load(args.file)
             if args.json:
-                print(json.dumps(analyze_dict(design), indent=2))
+                print(json.dumps(json_safe(analyze_dict(design)), indent=2, allow_nan=False))
             else:
                 _print_summary(design)
             return 0
@@ -144,7 +158,7 @@ def main(argv: Sequence[str] | None = None) -> int:
             design = load(args.file)
             doc = response_dict(design, args.hz)
             if args.json:
-                print(json.dumps(doc, indent=2))
+                print(json.dumps(json_safe(doc), indent=2, allow_nan=False))
             else:
                 keys = list(doc["points"][0].keys()) if doc["points"] else []
                 print("  ".join(f"{k:>16s}" for k in keys))
@@ -153,7 +167,7 @@ def main(argv: Sequence[str] | None = None) -> int:
             return 0
         return args.handler(args)
     except LoopcraftError as err:
-        print(f"loopcraft: error: {err}", file=sys.stderr)
+        print(terminal_safe(f"loopcraft: error: {err}"), file=sys.stderr)
         return 2
     except BrokenPipeError:
         return 0

@@ -22,6 +22,8 @@ import math
 from pathlib import Path
 from typing import Any
 
+from ._numbers import json_safe
+from ._text import terminal_safe
 from .design import Design, load
 from .errors import DesignFileError, LoopcraftError
 from .eseries import SERIES_NAMES
@@ -116,7 +118,7 @@ def cmd_report(args: argparse.Namespace) -> int:
     verdict = ""
     if rec.spec_passed is not None:
         verdict = f" (spec {'PASS' if rec.spec_passed else 'FAIL'})"
-    print(f"wrote {out}{verdict}")
+    print(terminal_safe(f"wrote {out}{verdict}"))
     return 0
 
 
@@ -129,14 +131,14 @@ def cmd_check(args: argparse.Namespace) -> int:
         raise DesignFileError(f"{args.file}: the design has no 'spec' section, so there is nothing to check", "spec")
     rep = check(design, spread=not args.no_spread, seed=args.seed)
     if args.json:
-        print(json.dumps(rep.to_dict(), indent=2, ensure_ascii=False))
+        print(terminal_safe(json.dumps(json_safe(rep.to_dict()), indent=2, ensure_ascii=False, allow_nan=False)))
     else:
-        print(rep)
+        print(terminal_safe(str(rep)))
         if not rep.passed:
             print()
             print(f"{len(rep.failures)} spec item(s) failed:")
             for item in rep.failures:
-                print(f"  FAILED {item.name} (required {item.required}): {item.message}")
+                print(terminal_safe(f"  FAILED {item.name} (required {item.required}): {item.message}"))
     return 0 if rep.passed else 1
 
 
@@ -159,12 +161,13 @@ def cmd_snap(args: argparse.Namespace) -> int:
         doc = res.to_dict()
         if args.output:
             doc["written"] = str(args.output)
-        print(json.dumps(doc, indent=2, ensure_ascii=False, default=_json_default))
+        print(terminal_safe(json.dumps(json_safe(doc), indent=2, ensure_ascii=False, default=_json_default,
+                                         allow_nan=False)))
     else:
-        print(res)
+        print(terminal_safe(str(res)))
         if args.output:
             print()
-            print(f"wrote {args.output}")
+            print(terminal_safe(f"wrote {args.output}"))
     return 0
 
 
@@ -190,9 +193,9 @@ def cmd_spread(args: argparse.Namespace) -> int:
     spread = monte_carlo(design, args.samples, seed=args.seed, spec=spec)
     doc = spread.to_dict()
     if args.json:
-        print(json.dumps(doc, indent=2, ensure_ascii=False))
+        print(terminal_safe(json.dumps(json_safe(doc), indent=2, ensure_ascii=False, allow_nan=False)))
     else:
-        print(_spread_text(design, doc))
+        print(terminal_safe(_spread_text(design, doc)))
     return 0
 
 

@@ -192,7 +192,6 @@ def _derive(transfer: sp.Expr, names: tuple[str, ...]) -> Derivation:
     return Derivation(names, transfer, sp.expand(num), sp.expand(den), gain, on - od, tuple(fn + fd))
 
 
-@cache
 def derive(stage) -> Derivation:
     """Derive (once per topology, cached on the frozen stage) the factored symbolic transfer of a stage.
 
@@ -203,5 +202,23 @@ def derive(stage) -> Derivation:
     Returns
     -------
     Derivation
+
+    Raises
+    ------
+    TopologyError
+        An undefined transfer function, or a stage so deeply nested that
+        the symbolic algebra reaches Python's recursion limit (the parsers'
+        part and nesting limits keep real stages far from it).
     """
+    try:
+        return _derive_stage(stage)  # hashing the stage for the cache recurses over its tree too
+    except RecursionError:
+        raise TopologyError(
+            "the stage is nested too deeply to derive: the symbolic algebra reached Python's recursion "
+            "limit; flatten the networks or use fewer parts"
+        ) from None
+
+
+@cache
+def _derive_stage(stage) -> Derivation:
     return _derive(stage.transfer_expr(), tuple(stage.component_names))

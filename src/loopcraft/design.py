@@ -8,9 +8,18 @@ A design file is JSON of loopcraft's own, versioned form::
      "values": {"R1": "10k", "R2": "22k", "R3": "470", "C1": "6.8n", "C2": "150p", "C3": "3.3n"},
      "notes": "free text"}
 
-Optional sections: ``opamp``, ``plant``, ``feedback_gain``, ``tolerances``,
-``spec``. Loading validates every key and never executes anything; errors
-carry the key path. Saving is atomic (temporary file, then rename).
+Optional sections: ``opamp``, ``plant``, ``feedback_gain`` (a number in
+1e-6 … 1e6 V/V), ``stage_sign`` (-1 or 1: the stage's sign in the loop gain
+L = stage_sign·P·k_fb·H, for an error amplifier wired other than the default rule
+of :mod:`loopcraft.loop`), ``tolerances``, ``spec``. Loading validates every key and never executes anything; errors
+carry the key path. Saving is atomic (temporary file, then rename) and keeps an
+overwritten file's permission bits; a symbolic link is followed (see :meth:`Design.save`).
+
+Design-file text may nest arrays and objects at most 32 deep (a real file
+nests 4) and hold no number longer than 1000 characters; beyond either it is
+refused, with a caret under the offending character, before the JSON decoder
+sees it. Numbers beyond the float range (``10**400``) are refused with their
+key path.
 """
 
 from __future__ import annotations
@@ -18,13 +27,16 @@ from __future__ import annotations
 import json
 import math
 import os
-import tempfile
+import re
 from collections.abc import Mapping
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
+from ._files import atomic_write
+from ._numbers import Span, shown
 from ._symbols import element_kind
+from ._text import check_text
 from .derivation import Derivation, derive
 from .errors import ComponentValueError, DesignFileError, LoopcraftError
 from .evaluator import Evaluator, TransferResult, compile_derivation
@@ -37,7 +49,11 @@ __all__ = ["Design", "load", "loads", "FORMAT_VERSION"]
 #: The design-file format version this package writes and reads.
 FORMAT_VERSION = 1
 
-_TOP_KEYS = ("loopcraft", "title", "stage", "values", "notes", "opamp", "plant", "feedback_gain", "tolerances", "spec")
+#: The accepted range of ``feedback_gain`` (divider or sensor gain), V/V.
+FEEDBACK_GAIN = Span(1e-6, 1e6, "V/V")
+
+_TOP_KEYS = ("loopcraft", "title", "stage", "values", "notes", "opamp", "plant", "feedback_gain", "stage_sign",
+             "tolerances", "spec")
 
 
 def _no_duplicates(pairs: list[tuple[str, Any]]) -> dict[str, Any]:
@@ -55,7 +71,9 @@ def _parse_values(raw: Any, stage: Stage, key_path: str = "values") -> tuple[dic
     names = stage.component_names
     for k in raw:
         if k not in names:
-            raise DesignFileError(f"no element {k!r} in the stage (elements: {', '.join(names)})", f"{key_path}.{k}")
+            raise DesignFileError(
+                f"no element {shown(k)} in the stage (elements: {', '.join(names)})", f"{key_path}.{k}"
+            )
     values: dict[str, float] = {}
     given: dict[str, Any] = {}
     for n in names:
@@ -106,6 +124,18 @@ class Design:
     feedback_gain: float = 1.0
     tolerances: Mapping[str, Any] | None = None
     spec: Mapping[str, Any] | None = None
+    stage_sign: int | None = None
+
+    @property
+    def loop_stage_sign(self) -> int:
+        """The stage's sign in the loop, L = sign·P·k_fb·H.
+
+        ``stage_sign`` when the file states it, else -1 for inverting and circuit
+        stages and +1 for non-inverting ones.
+        """
+        from .loop import loop_sign
+
+        return int(loop_sign(self.stage.kind, self.stage_sign))
 
     # -- construction ----------------------------------------------------
     @classmethod
@@ -126,18 +156,19 @@ class Design:
             raise DesignFileError(f'missing format version (expected "loopcraft": {FORMAT_VERSION})', "loopcraft")
         version = d["loopcraft"]
         if not isinstance(version, int) or isinstance(version, bool) or version < 1:
-            raise DesignFileError(f"format version must be a positive integer (got {version!r})", "loopcraft")
+            raise DesignFileError(f"format version must be a positive integer (got {shown(version)})", "loopcraft")
         if version > FORMAT_VERSION:
             raise DesignFileError(
-                f"format version {version} is newer than this loopcraft reads ({FORMAT_VERSION}); upgrade loopcraft",
+                f"format version {shown(version)} is newer than this loopcraft reads ({FORMAT_VERSION}); "
+                "upgrade loopcraft",
                 "loopcraft",
             )
         for k in ("stage", "values"):
             if k not in d:
                 raise DesignFileError(f"missing section {k!r}", k)
         for k in ("title", "notes"):
-            if k in d and not isinstance(d[k], str):
-                raise DesignFileError(f"expected text (got {d[k]!r})", k)
+            if k in d:
+                check_text(d[k], k)  # a string, and one that can be saved (no lone surrogate)
         stage = stage_from_dict(d["stage"], "stage")
         values, given = _parse_values(d["values"], stage)
         opamp = plant = None
@@ -150,8 +181,15 @@ class Design:
 
             plant = _wrap(lambda: plant_from_dict(d["plant"], "plant"), "plant")
         fb = d.get("feedback_gain", 1.0)
-        if isinstance(fb, bool) or not isinstance(fb, int | float) or not math.isfinite(fb) or fb <= 0:
-            raise DesignFileError(f"feedback_gain must be a number > 0, V/V (got {fb!r})", "feedback_gain")
+        if not FEEDBACK_GAIN.contains(fb):
+            raise DesignFileError(
+                f"feedback_gain must be a number in {FEEDBACK_GAIN.text} (got {shown(fb)})", "feedback_gain"
+            )
+        ss = d.get("stage_sign")
+        if ss is not None and (isinstance(ss, bool) or ss not in (-1, 1) or not isinstance(ss, int)):
+            raise DesignFileError(
+                f"stage_sign must be -1 (L = -P·k_fb·H) or 1 (L = P·k_fb·H) (got {ss!r})", "stage_sign"
+            )
         tol = d.get("tolerances")
         spec = d.get("spec")
         if tol is not None:
@@ -162,7 +200,7 @@ class Design:
             from .spec import validate_spec
 
             validate_spec(spec, "spec")
-        return cls(stage, values, given, d.get("title", ""), d.get("notes", ""), opamp, plant, float(fb), tol, spec)
+        return cls(stage, values, given, d.get("title", ""), d.get("notes", ""), opamp, plant, float(fb), tol, spec, ss)
 
     def to_dict(self) -> dict[str, Any]:
         """The design as a JSON-ready dict; ``Design.from_dict(d.to_dict())`` round-trips."""
@@ -177,6 +215,8 @@ class Design:
             out["plant"] = self.plant.to_dict()
         if self.feedback_gain != 1.0:
             out["feedback_gain"] = self.feedback_gain
+        if self.stage_sign is not None:
+            out["stage_sign"] = self.stage_sign
         if self.tolerances is not None:
             out["tolerances"] = json.loads(json.dumps(self.tolerances))
         if self.spec is not None:
@@ -190,27 +230,29 @@ class Design:
         return json.dumps(self.to_dict(), indent=2, ensure_ascii=False) + "\n"
 
     def save(self, path: str | os.PathLike[str]) -> Path:
-        """Write the design file atomically (temporary file in the same folder, then rename).
+        """Write the design file atomically (see :func:`loopcraft._files.atomic_write`).
+
+        Readers see the old file or the new one, never a mix. An overwritten file keeps its
+        permission bits; a symbolic link at ``path`` is followed and the file it leads to is
+        replaced (the link stays).
+
+        Parameters
+        ----------
+        path : str or path-like
+            The design file to write (JSON, UTF-8).
 
         Returns
         -------
         Path
             The path written.
+
+        Raises
+        ------
+        FileWriteError
+            The file cannot be written (the message names the path and the reason); the old
+            file, if any, is left intact and no temporary file remains.
         """
-        path = Path(path)
-        text = self.to_json()
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent or ".")
-        try:
-            with os.fdopen(fd, "w", encoding="utf-8") as fh:
-                fh.write(text)
-                fh.flush()
-                os.fsync(fh.fileno())
-            os.replace(tmp, path)
-        except BaseException:
-            if os.path.exists(tmp):
-                os.unlink(tmp)
-            raise
-        return path
+        return atomic_write(path, self.to_json())
 
     def with_values(self, values: Mapping[str, Any] | None = None, /, **kw: Any) -> Design:
         """A new design with some values changed (text or numbers in SI base units).
@@ -232,7 +274,16 @@ class Design:
         return replace(self, values=new_vals, given=new_given)
 
     def with_sections(self, **sections: Any) -> Design:
-        """A new design with ``opamp``, ``plant``, ``feedback_gain``, ``title`` … replaced."""
+        """A new design with ``opamp``, ``plant``, ``feedback_gain``, ``title`` … replaced.
+
+        Raises
+        ------
+        DesignFileError
+            A ``title`` or ``notes`` that is not text, or holds a lone surrogate.
+        """
+        for k in ("title", "notes"):
+            if k in sections:
+                check_text(sections[k], k)
         return replace(self, **sections)
 
     def __eq__(self, other: object) -> bool:
@@ -410,6 +461,8 @@ def load(path: str | os.PathLike[str]) -> Design:
     DesignFileError
         The file is missing, is not JSON (line and column given), or breaks the format.
     """
+    if not isinstance(path, str | os.PathLike):
+        raise DesignFileError(f"a design file is named by a path (got {type(path).__name__} {shown(path)})")
     p = Path(path)
     try:
         text = p.read_text(encoding="utf-8")
@@ -417,7 +470,47 @@ def load(path: str | os.PathLike[str]) -> Design:
         raise DesignFileError(f"cannot read {str(p)!r}: {err.strerror}") from err
     except UnicodeDecodeError as err:
         raise DesignFileError(f"{str(p)!r} is not UTF-8 text") from err
+    except ValueError as err:  # a NUL character in the path
+        raise DesignFileError(f"cannot read {str(p)!r}: {err}") from err
     return loads(text, p.name)
+
+
+#: Deepest nesting of JSON arrays and objects in a design file (a real one nests 4 deep).
+MAX_JSON_DEPTH = 32
+#: Longest number in a design file, in characters (a real one is a few dozen at most).
+MAX_JSON_NUMBER = 1000
+
+# JSON tokens that matter for the limits: strings (skipped whole), brackets, numbers.
+_JSON_TOKEN = re.compile(r'"[^"\\]*(?:\\.[^"\\]*)*"?|[\[\]{}]|-?[0-9][0-9.eE+-]*')
+
+
+def _json_limits(text: str, name: str) -> None:
+    """Refuse text that nests deeper than MAX_JSON_DEPTH or holds a number longer than MAX_JSON_NUMBER."""
+    depth = 0
+    for m in _JSON_TOKEN.finditer(text):
+        tok = m.group()
+        ch = tok[0]
+        if ch in "[{":
+            depth += 1
+            if depth > MAX_JSON_DEPTH:
+                _json_refuse(text, name, m.start(), f"arrays and objects nested deeper than {MAX_JSON_DEPTH} levels "
+                             "(the limit; a design file nests 4 deep)")
+        elif ch in "]}":
+            depth -= 1
+        elif ch != '"' and len(tok) > MAX_JSON_NUMBER:
+            _json_refuse(text, name, m.start(), f"a number of {len(tok)} characters (the limit is {MAX_JSON_NUMBER})")
+
+
+def _json_refuse(text: str, name: str, pos: int, why: str) -> None:
+    line = text.count("\n", 0, pos) + 1
+    start = text.rfind("\n", 0, pos) + 1
+    col = pos - start + 1
+    end = text.find("\n", pos)
+    end = len(text) if end < 0 else end
+    lo, hi = max(start, pos - 30), min(end, pos + 30)
+    snippet = ("…" if lo > start else "") + text[lo:hi] + ("…" if hi < end else "")
+    caret = " " * (pos - lo + (1 if lo > start else 0)) + "^"
+    raise DesignFileError(f"{name}: {why} at line {line}, column {col}:\n  {snippet}\n  {caret}")
 
 
 def loads(text: str, name: str = "<text>") -> Design:
@@ -433,10 +526,25 @@ def loads(text: str, name: str = "<text>") -> Design:
     Raises
     ------
     DesignFileError
-        Not JSON (line and column given), a key given twice, or a design that breaks the format.
+        Not JSON (line and column given), a key given twice, arrays and
+        objects nested deeper than :data:`MAX_JSON_DEPTH`, a number longer than
+        :data:`MAX_JSON_NUMBER` characters (both with a caret under the
+        offending character), or a design that breaks the format.
     """
+    if isinstance(text, bytes | bytearray):
+        try:
+            text = bytes(text).decode("utf-8")
+        except UnicodeDecodeError as err:
+            raise DesignFileError(f"{name}: not UTF-8 text ({err.reason} at byte {err.start})") from err
+    if not isinstance(text, str):
+        raise DesignFileError(f"{name}: design-file text must be a string (got {type(text).__name__})")
+    _json_limits(text, name)
     try:
         data = json.loads(text, object_pairs_hook=_no_duplicates)
     except json.JSONDecodeError as err:
         raise DesignFileError(f"{name}: not valid JSON: {err.msg} at line {err.lineno}, column {err.colno}") from err
+    except DesignFileError:
+        raise  # a key given twice, from the object hook
+    except (ValueError, RecursionError) as err:  # e.g. an integer beyond sys.get_int_max_str_digits()
+        raise DesignFileError(f"{name}: cannot read the JSON: {err}") from err
     return Design.from_dict(data)

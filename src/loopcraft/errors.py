@@ -15,6 +15,7 @@ __all__ = [
     "DesignFileError",
     "SynthesisError",
     "AnalysisError",
+    "FileWriteError",
 ]
 
 
@@ -75,3 +76,32 @@ class SynthesisError(LoopcraftError, ValueError):
 
 class AnalysisError(LoopcraftError, ValueError):
     """An analysis that cannot be carried out on the given data."""
+
+
+class FileWriteError(LoopcraftError, OSError):
+    """A file that could not be written (the file it would replace, if any, is left intact).
+
+    Also an :class:`OSError`, so code that catches ``OSError`` around a save keeps working.
+
+    Parameters
+    ----------
+    message : str
+        What went wrong, naming the path.
+    path : str
+        The path that was to be written.
+    errno : int or None
+        The operating system's error number, when there is one.
+    strerror : str or None
+        The operating system's description of it.
+    """
+
+    def __init__(self, message: str, path: str = "", errno: int | None = None, strerror: str | None = None) -> None:
+        super().__init__(message)
+        self.reason = message
+        self.path = path
+        self.errno = errno
+        self.strerror = strerror
+        self.filename = path or None
+
+    def __str__(self) -> str:
+        return self.reason

@@ -10,6 +10,16 @@ Grammar (``||`` binds tighter than ``+``)::
 
 ``R1 || (R3 + C3)`` is R1 in parallel with the series pair R3, C3.
 Each element is R (Z = R), C (Z = 1/(sC)) or L (Z = sL); s in rad/s.
+
+Limits (far above any real stage, which has a dozen parts nested two or three
+deep; they keep hostile text from exhausting the parser or the solver):
+
+* at most :data:`MAX_PARTS` (64) elements in one expression;
+* parentheses nested at most :data:`MAX_NESTING` (32) deep;
+* at most :data:`MAX_TEXT` (4096) characters.
+
+Breaking one is a :class:`~loopcraft.errors.ParseError` with a caret under
+the offending character.
 """
 
 from __future__ import annotations
@@ -24,7 +34,14 @@ import sympy as sp
 from ._symbols import NAME_RE, S, component_symbol, element_kind
 from .errors import ParseError, TopologyError
 
-__all__ = ["Network", "Element", "Series", "Parallel", "parse_network"]
+__all__ = ["Network", "Element", "Series", "Parallel", "parse_network", "MAX_PARTS", "MAX_NESTING", "MAX_TEXT"]
+
+#: Most elements in one network expression.
+MAX_PARTS = 64
+#: Deepest nesting of parentheses in one network expression.
+MAX_NESTING = 32
+#: Longest network expression, in characters.
+MAX_TEXT = 4096
 
 
 @dataclass(frozen=True)
@@ -171,6 +188,8 @@ class _Parser:
     def __init__(self, text: str) -> None:
         self.text = text
         self.pos = 0
+        self.depth = 0  # parentheses open around the current position
+        self.parts = 0  # elements read so far
 
     def error(self, message: str, pos: int | None = None) -> ParseError:
         return ParseError(message, self.text, self.pos if pos is None else pos)
@@ -225,6 +244,9 @@ class _Parser:
         ch = self.text[self.pos]
         if ch == "(":
             open_pos = self.pos
+            if self.depth >= MAX_NESTING:
+                raise self.error(f"parentheses nested deeper than {MAX_NESTING} levels (the limit)")
+            self.depth += 1
             self.pos += 1
             self.skip()
             if self.peek(")"):
@@ -236,6 +258,7 @@ class _Parser:
                     raise self.error("'(' is never closed", open_pos)
                 raise self.error(f"expected ')' to close the '(' at column {open_pos + 1}")
             self.pos += 1
+            self.depth -= 1
             return node
         m = NAME_RE.match(self.text, self.pos)
         if m is None or (m.end() < len(self.text) and not _ends_name(self.text[m.end()])):
@@ -249,6 +272,9 @@ class _Parser:
             if ch == ")":
                 raise self.error("expected an element or '(' before ')'")
             raise self.error(f"unexpected {ch!r} (expected an element such as R1, C2, L1)")
+        if self.parts >= MAX_PARTS:
+            raise self.error(f"more than {MAX_PARTS} elements in one network (the limit)")
+        self.parts += 1
         self.pos = m.end()
         return Element(m.group(0))
 
@@ -283,7 +309,10 @@ def parse_network(text: str) -> Network:
         The expression breaks the grammar; the message shows the text with a
         caret under the offending character.
         An element that appears twice is also a ParseError (a designator
-        names exactly one part); the caret marks the second use.
+        names exactly one part); the caret marks the second use. So is text
+        beyond the limits: more than :data:`MAX_PARTS` elements, parentheses
+        nested deeper than :data:`MAX_NESTING`, or more than :data:`MAX_TEXT`
+        characters.
     TopologyError
         ``text`` is not a string.
 
@@ -294,6 +323,9 @@ def parse_network(text: str) -> Network:
     """
     if not isinstance(text, str):
         raise TopologyError(f"a network is text such as 'R1 + C1' (got {type(text).__name__} {text!r})")
+    if len(text) > MAX_TEXT:
+        raise ParseError(f"network text too long: {len(text)} characters, the limit is {MAX_TEXT} "
+                         "(only the first 40 are shown)", text[:40], 40)
     root = _Parser(text).parse()
     names = root.names()
     seen: set[str] = set()

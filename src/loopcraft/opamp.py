@@ -21,6 +21,16 @@ with s in rad/s. Conventions:
   numerically (see :func:`second_pole_for_phase_margin`); the usual
   approximation ``fu ≈ GBW`` is not used.
 
+Accepted ranges (checked when an :class:`OpAmp` is built or read; far wider
+than any real amplifier, narrow enough that every derived quantity stays a
+finite float):
+
+* ``a0``: above 1 and at most 1e12 V/V (``a0_db``: above 0 and at most 240 dB);
+* ``gbw_hz``: 1 mHz … 1 THz; ``second_pole_hz``: 1 mHz … 1 PHz (a phase
+  margin near the single-pole limit puts it far above the GBW);
+* ``output_swing_v``: 1 mV … 100 kV peak;
+* ``slew_rate_v_per_us``: 1e-6 … 1e6 V/µs.
+
 These are small-signal models; power-converter designs involve hazardous
 voltages and stored energy, so verify the loop gain on the bench and follow
 local codes and licensed practice.
@@ -29,16 +39,17 @@ local codes and licensed practice.
 from __future__ import annotations
 
 import math
-import re
 from collections.abc import Mapping
 from dataclasses import dataclass
+from numbers import Real
 from typing import Any
 
 import numpy as np
 
+from ._numbers import Span, read_number, real_float, shown
 from .errors import AnalysisError, ComponentValueError, DesignFileError
 from .factors import Factor, FactoredNumeric
-from .values import format_value, parse_value
+from .values import format_value
 
 __all__ = ["OpAmp", "OPAMP_MODELS", "second_pole_for_phase_margin"]
 
@@ -58,15 +69,23 @@ _KEYS: tuple[str, ...] = (
     "slew_rate_v_per_us",
 )
 
-# Units that may follow a number in a design file, per key.
-_UNIT_SUFFIX: dict[str, re.Pattern[str]] = {
-    "gbw_hz": re.compile(r"\s*Hz\s*$"),
-    "second_pole_hz": re.compile(r"\s*Hz\s*$"),
-    "output_swing_v": re.compile(r"\s*V\s*$"),
-    "slew_rate_v_per_us": re.compile(r"\s*V\s*/\s*[uµμ]s\s*$"),
-    "a0_db": re.compile(r"\s*dB\s*$"),
-    "phase_margin_deg": re.compile(r"\s*(deg|°)\s*$"),
+# Units that may follow a number in a design file, per key (regular expressions).
+_UNIT_SUFFIX: dict[str, str] = {
+    "gbw_hz": r"Hz",
+    "second_pole_hz": r"Hz",
+    "output_swing_v": r"V",
+    "slew_rate_v_per_us": r"V\s*/\s*[uµμ]s",
+    "a0_db": r"dB",
+    "phase_margin_deg": r"deg|°",
 }
+
+#: Accepted ranges of the fields (see the module docstring).
+A0_RANGE = Span(1.0, 1e12, "V/V")  # and above 1
+A0_DB_RANGE = Span(0.0, 240.0, "dB")  # and above 0
+FREQUENCY_RANGE = Span(1e-3, 1e12, "Hz")
+SECOND_POLE_RANGE = Span(1e-3, 1e15, "Hz")
+SWING_RANGE = Span(1e-3, 1e5, "V")
+SLEW_RANGE = Span(1e-6, 1e6, "V/µs")
 
 
 class _FieldError(ComponentValueError):
@@ -79,6 +98,11 @@ class _FieldError(ComponentValueError):
 
 def _finite_positive(x: float) -> bool:
     return math.isfinite(x) and x > 0
+
+
+def _in(span: Span, name: str, x: Any) -> None:
+    if not span.contains(x):
+        raise _FieldError(f"{name} must lie in {span.text} (got {shown(x)})", name)
 
 
 @dataclass(frozen=True)
@@ -119,42 +143,41 @@ class OpAmp:
     def __post_init__(self) -> None:
         if self.model not in OPAMP_MODELS:
             raise _FieldError(
-                f"op-amp model {self.model!r} is not known "
+                f"op-amp model {shown(self.model)} is not known "
                 f"(expected one of {', '.join(OPAMP_MODELS)})",
                 "model",
             )
         if self.model == "ideal":
-            if self.a0 != math.inf:
-                raise _FieldError(f"an ideal op-amp has a0 = inf (got {self.a0!r})", "a0")
-            if self.gbw_hz != math.inf:
+            if not (isinstance(self.a0, float) and self.a0 == math.inf):
+                raise _FieldError(f"an ideal op-amp has a0 = inf (got {shown(self.a0)})", "a0")
+            if not (isinstance(self.gbw_hz, float) and self.gbw_hz == math.inf):
                 raise _FieldError(
-                    f"an ideal op-amp has gbw_hz = inf (got {self.gbw_hz!r})", "gbw_hz"
+                    f"an ideal op-amp has gbw_hz = inf (got {shown(self.gbw_hz)})", "gbw_hz"
                 )
             if self.second_pole_hz is not None:
                 raise _FieldError(
                     "an ideal op-amp has no second pole "
-                    f"(got second_pole_hz={self.second_pole_hz!r})",
+                    f"(got second_pole_hz={shown(self.second_pole_hz)})",
                     "second_pole_hz",
                 )
         else:
-            if not (math.isfinite(self.a0) and self.a0 > 1.0):
-                raise _FieldError(f"a0 must be a finite gain > 1 V/V (got {self.a0!r})", "a0")
-            if not _finite_positive(self.gbw_hz):
+            if not (A0_RANGE.contains(self.a0) and self.a0 > 1.0):
                 raise _FieldError(
-                    f"gbw_hz must be finite and > 0 Hz (got {self.gbw_hz!r})", "gbw_hz"
+                    f"a0 must be a gain above 1 and at most {A0_RANGE.hi:g} V/V (got {shown(self.a0)})", "a0"
                 )
+            _in(FREQUENCY_RANGE, "gbw_hz", self.gbw_hz)
             if self.model == "single_pole":
                 if self.second_pole_hz is not None:
                     raise _FieldError(
                         "a single-pole op-amp has no second pole "
-                        f"(got second_pole_hz={self.second_pole_hz!r}); use model 'two_pole'",
+                        f"(got second_pole_hz={shown(self.second_pole_hz)}); use model 'two_pole'",
                         "second_pole_hz",
                     )
             else:
                 f2 = self.second_pole_hz
-                if f2 is None or not _finite_positive(f2):
+                if f2 is None or not SECOND_POLE_RANGE.contains(f2):
                     raise _FieldError(
-                        f"a two-pole op-amp needs a finite second_pole_hz > 0 Hz (got {f2!r})",
+                        f"a two-pole op-amp needs a second_pole_hz in {SECOND_POLE_RANGE.text} (got {shown(f2)})",
                         "second_pole_hz",
                     )
                 fa = self.gbw_hz / self.a0
@@ -164,16 +187,10 @@ class OpAmp:
                         "(expected second_pole_hz >= gbw_hz/a0)",
                         "second_pole_hz",
                     )
-        if self.output_swing_v is not None and not _finite_positive(self.output_swing_v):
-            raise _FieldError(
-                f"output_swing_v must be a finite peak swing > 0 V (got {self.output_swing_v!r})",
-                "output_swing_v",
-            )
-        if self.slew_rate_v_per_us is not None and not _finite_positive(self.slew_rate_v_per_us):
-            raise _FieldError(
-                f"slew_rate_v_per_us must be finite and > 0 V/µs (got {self.slew_rate_v_per_us!r})",
-                "slew_rate_v_per_us",
-            )
+        if self.output_swing_v is not None:
+            _in(SWING_RANGE, "output_swing_v", self.output_swing_v)
+        if self.slew_rate_v_per_us is not None:
+            _in(SLEW_RANGE, "slew_rate_v_per_us", self.slew_rate_v_per_us)
 
     # ------------------------------------------------------------------ file I/O
     @classmethod
@@ -206,12 +223,12 @@ class OpAmp:
         """
         if not isinstance(d, Mapping):
             raise DesignFileError(
-                f"expected a mapping of op-amp parameters, got {type(d).__name__} {d!r}", key_path
+                f"expected a mapping of op-amp parameters, got {type(d).__name__} {shown(d)}", key_path
             )
         for k in d:
             if k not in _KEYS:
                 raise DesignFileError(
-                    f"unknown key {k!r} (expected one of {', '.join(_KEYS)})", f"{key_path}.{k}"
+                    f"unknown key {shown(k)} (expected one of {', '.join(_KEYS)})", f"{key_path}.{k}"
                 )
         if "model" not in d:
             raise DesignFileError(
@@ -220,12 +237,12 @@ class OpAmp:
         model = d["model"]
         if not isinstance(model, str) or model not in OPAMP_MODELS:
             raise DesignFileError(
-                f"op-amp model {model!r} is not known (expected one of {', '.join(OPAMP_MODELS)})",
+                f"op-amp model {shown(model)} is not known (expected one of {', '.join(OPAMP_MODELS)})",
                 f"{key_path}.model",
             )
 
         def num(key: str) -> float:
-            return _read_number(d[key], key, f"{key_path}.{key}")
+            return read_number(d[key], f"{key_path}.{key}", key, unit=_UNIT_SUFFIX.get(key))
 
         source: dict[str, str] = {}  # dataclass field -> design-file key
         kwargs: dict[str, Any] = {"model": model}
@@ -238,7 +255,7 @@ class OpAmp:
             for key in ("a0_db", "a0", "gbw_hz", "second_pole_hz", "phase_margin_deg"):
                 if key in d:
                     raise DesignFileError(
-                        f"key {key!r} does not apply to model 'ideal' (got {d[key]!r}); "
+                        f"key {key!r} does not apply to model 'ideal' (got {shown(d[key])}); "
                         "use model 'single_pole' or 'two_pole' for a finite gain",
                         f"{key_path}.{key}",
                     )
@@ -246,7 +263,7 @@ class OpAmp:
 
         if "a0" in d and "a0_db" in d:
             raise DesignFileError(
-                f"give a0 (V/V) or a0_db (dB), not both (got a0={d['a0']!r}, a0_db={d['a0_db']!r})",
+                f"give a0 (V/V) or a0_db (dB), not both (got a0={shown(d['a0'])}, a0_db={shown(d['a0_db'])})",
                 f"{key_path}.a0_db",
             )
         if "a0" in d:
@@ -254,17 +271,18 @@ class OpAmp:
             source["a0"] = "a0"
         elif "a0_db" in d:
             a0_db = num("a0_db")
-            if not (math.isfinite(a0_db) and a0_db > 0):
+            if not (A0_DB_RANGE.contains(a0_db) and a0_db > 0):
                 raise DesignFileError(
-                    f"a0_db must be finite and > 0 dB (got {d['a0_db']!r})", f"{key_path}.a0_db"
+                    f"a0_db must be above 0 and at most {A0_DB_RANGE.hi:g} dB (got {shown(d['a0_db'])})",
+                    f"{key_path}.a0_db",
                 )
             kwargs["a0"] = 10.0 ** (a0_db / 20.0)
             source["a0"] = "a0_db"
         else:
-            raise DesignFileError(f"model {model!r} needs 'a0' (V/V) or 'a0_db' (dB)", key_path)
+            raise DesignFileError(f"model {shown(model)} needs 'a0' (V/V) or 'a0_db' (dB)", key_path)
         if "gbw_hz" not in d:
             raise DesignFileError(
-                f"model {model!r} needs 'gbw_hz' (gain-bandwidth product A0·fa, Hz)", key_path
+                f"model {shown(model)} needs 'gbw_hz' (gain-bandwidth product A0·fa, Hz)", key_path
             )
         kwargs["gbw_hz"] = num("gbw_hz")
         source["gbw_hz"] = "gbw_hz"
@@ -273,7 +291,7 @@ class OpAmp:
             for key in ("second_pole_hz", "phase_margin_deg"):
                 if key in d:
                     raise DesignFileError(
-                        f"key {key!r} does not apply to model 'single_pole' (got {d[key]!r}); "
+                        f"key {key!r} does not apply to model 'single_pole' (got {shown(d[key])}); "
                         "use model 'two_pole'",
                         f"{key_path}.{key}",
                     )
@@ -284,8 +302,8 @@ class OpAmp:
         if has_f2 and has_pm:
             raise DesignFileError(
                 "give second_pole_hz or phase_margin_deg, not both "
-                f"(got second_pole_hz={d['second_pole_hz']!r}, "
-                f"phase_margin_deg={d['phase_margin_deg']!r})",
+                f"(got second_pole_hz={shown(d['second_pole_hz'])}, "
+                f"phase_margin_deg={shown(d['phase_margin_deg'])})",
                 f"{key_path}.phase_margin_deg",
             )
         if has_f2:
@@ -301,6 +319,14 @@ class OpAmp:
                 )
             except AnalysisError as exc:
                 raise DesignFileError(str(exc), f"{key_path}.phase_margin_deg") from exc
+            f2 = kwargs["second_pole_hz"]
+            if not SECOND_POLE_RANGE.contains(f2):
+                raise DesignFileError(
+                    f"phase_margin_deg {shown(d['phase_margin_deg'])} puts the second pole at {f2:.4g} Hz, outside "
+                    f"{SECOND_POLE_RANGE.text}"
+                    + ("; use model 'single_pole' for a margin this close to 90°" if f2 > 1.0 else ""),
+                    f"{key_path}.phase_margin_deg",
+                )
             source["second_pole_hz"] = "phase_margin_deg"
         else:
             raise DesignFileError(
@@ -506,6 +532,10 @@ def second_pole_for_phase_margin(a0: float, gbw_hz: float, phase_margin_deg: flo
         amplifier with this A0 can have: at or above the single-pole value
         ``90° + asin(1/A0)``, or below ``2·asin(A0^(-1/2))`` (both poles at fa).
     """
+    for name, x in (("a0", a0), ("gbw_hz", gbw_hz), ("phase_margin_deg", phase_margin_deg)):
+        if isinstance(x, bool) or not isinstance(x, Real):
+            raise AnalysisError(f"{name} must be a number (got {shown(x)})")
+    a0, gbw_hz, phase_margin_deg = real_float(a0), real_float(gbw_hz), real_float(phase_margin_deg)
     if not (math.isfinite(a0) and a0 > 1.0):
         raise AnalysisError(f"a0 must be a finite gain > 1 V/V (got {a0!r})")
     if not _finite_positive(gbw_hz):
@@ -556,30 +586,3 @@ def _build(kwargs: dict[str, Any], source: dict[str, str], key_path: str) -> OpA
     except _FieldError as exc:
         key = source.get(exc.field, "")
         raise DesignFileError(str(exc), f"{key_path}.{key}" if key else key_path) from exc
-
-
-def _read_number(value: Any, key: str, where: str) -> float:
-    """Read a design-file number (a number, or text with an SI prefix and optional unit)."""
-    if isinstance(value, bool) or not isinstance(value, int | float | str):
-        raise DesignFileError(
-            f"{key} must be a number or engineering text such as '10M' "
-            f"(got {type(value).__name__} {value!r})",
-            where,
-        )
-    if isinstance(value, int | float):
-        x = float(value)
-    else:
-        text = value
-        pattern = _UNIT_SUFFIX.get(key)
-        if pattern is not None:
-            text = pattern.sub("", text)
-        try:
-            x = float(text.strip())
-        except ValueError:
-            try:
-                x = parse_value(text, name=key)
-            except ComponentValueError as exc:
-                raise DesignFileError(str(exc), where) from exc
-    if not math.isfinite(x):
-        raise DesignFileError(f"{key} must be finite (got {value!r})", where)
-    return x

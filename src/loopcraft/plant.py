@@ -20,6 +20,24 @@ in rad/s inside the factored form; frequencies in Hz in the design file):
 Design-file values are numbers (SI base units) or engineering strings such
 as ``"22u"``, ``"10 mΩ"``, ``"400 kHz"``, ``"48 V"``.
 
+Accepted ranges, checked when a plant is built or read (far wider than any
+real converter, narrow enough that every corner, Q and gain derived from them
+is a finite float; a value outside is an error naming the key and the range):
+
+* resistances ``load_ohm``, ``ri_ohm`` (V/A): 1 µΩ … 1 TΩ; ``esr_ohm``,
+  ``dcr_ohm``: 0, or 1 µΩ … 1 TΩ;
+* capacitance ``c_f``: 1 fF … 1 kF; inductance ``l_h``: 1 pH … 1 kH;
+* voltages ``vin_v``, ``vout_v``: 1 mV … 1 MV; ramp ``ramp_v``: 1 mV … 1 kV;
+* switching frequency ``f_sw_hz``: 1 mHz … 1 THz; root frequencies
+  (``zeros_hz`` … ``f0_hz``, and the roots of a ``polynomial`` plant):
+  1 nHz … 1 PHz;
+* ``q`` of a root pair: 0.001 … 1e6; duty cycle ``duty``: 0.001 … 0.999
+  (also when it follows from ``vout_v``); ``mc``: 1 … 1000;
+* ``gain`` of a general plant, and K of a polynomial one: magnitude 1e-30 …
+  1e30 (either sign); ``origin_order``: -4 … 4;
+* at most 16 roots in all (a pair counts 2, the origin order counts) for a
+  general plant; at most 17 coefficients (degree 16) per polynomial.
+
 These are small-signal models only; power-converter designs involve hazardous
 voltages and stored energy, so verify the loop gain on the bench and follow
 local codes and licensed practice.
@@ -28,7 +46,6 @@ local codes and licensed practice.
 from __future__ import annotations
 
 import math
-import re
 from abc import ABC, abstractmethod
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
@@ -36,9 +53,10 @@ from typing import Any, ClassVar
 
 import numpy as np
 
+from ._numbers import Span, read_number, real_float, shown
 from .errors import AnalysisError, ComponentValueError, DesignFileError
 from .factors import Factor, FactoredNumeric, factored_from_tf
-from .values import format_value, parse_value
+from .values import format_value
 
 __all__ = [
     "Plant",
@@ -64,24 +82,32 @@ class _FieldError(ComponentValueError):
         super().__init__(message)
 
 
-def _positive(name: str, x: float, unit: str) -> None:
-    if not (isinstance(x, int | float) and not isinstance(x, bool) and math.isfinite(x) and x > 0):
-        raise _FieldError(f"{name} must be finite and > 0 {unit} (got {x!r})", name)
+#: Accepted ranges of the physical fields (see the module docstring).
+RESISTANCE = Span(1e-6, 1e12, "Ω")
+PARASITIC = Span(1e-6, 1e12, "Ω", zero=True)
+SENSE_GAIN = Span(1e-6, 1e12, "V/A")
+CAPACITANCE = Span(1e-15, 1e3, "F")
+INDUCTANCE = Span(1e-12, 1e3, "H")
+VOLTAGE = Span(1e-3, 1e6, "V")
+RAMP = Span(1e-3, 1e3, "V")
+FREQUENCY = Span(1e-3, 1e12, "Hz")
+ROOT_FREQUENCY = Span(1e-9, 1e15, "Hz")
+Q_RANGE = Span(1e-3, 1e6, "")
+DUTY = Span(1e-3, 0.999, "")
+MC_RANGE = Span(1.0, 1e3, "")
+GAIN = Span(1e-30, 1e30, "", signed=True)
+#: Largest |origin_order| of a general plant.
+MAX_ORIGIN_ORDER = 4
+#: Most roots of a general plant (a pair counts 2, the origin order counts).
+MAX_ORDER = 16
+#: Most coefficients of one polynomial of a polynomial plant.
+MAX_COEFFICIENTS = 17
 
 
-def _nonnegative(name: str, x: float, unit: str) -> None:
-    if not (isinstance(x, int | float) and not isinstance(x, bool) and math.isfinite(x) and x >= 0):
-        raise _FieldError(f"{name} must be finite and >= 0 {unit} (got {x!r})", name)
-
-
-def _duty(name: str, x: float) -> None:
-    if not (
-        isinstance(x, int | float)
-        and not isinstance(x, bool)
-        and math.isfinite(x)
-        and 0.0 < x < 1.0
-    ):
-        raise _FieldError(f"{name} must be a duty cycle strictly between 0 and 1 (got {x!r})", name)
+def _in(span: Span, name: str, x: Any, what: str = "") -> None:
+    """Raise _FieldError unless ``x`` lies in ``span``; ``what`` describes the field."""
+    if not span.contains(x):
+        raise _FieldError(f"{name}{what} must lie in {span.text} (got {shown(x)})", name)
 
 
 def _hz(f_hz: float) -> str:
@@ -218,34 +244,41 @@ class GeneralPlant(Plant):
             if isinstance(getattr(self, name), list):
                 object.__setattr__(self, name, tuple(getattr(self, name)))
             if not isinstance(getattr(self, name), tuple):
-                raise _FieldError(f"{name} must be a tuple (got {getattr(self, name)!r})", name)
-        g = self.gain
-        if isinstance(g, bool) or not isinstance(g, int | float) or not math.isfinite(g) or g == 0:
-            raise _FieldError(f"gain must be finite and non-zero (got {g!r})", "gain")
-        if isinstance(self.origin_order, bool) or not isinstance(self.origin_order, int):
+                raise _FieldError(f"{name} must be a tuple (got {shown(getattr(self, name))})", name)
+        _in(GAIN, "gain", self.gain, " (non-zero, either sign)")
+        n = self.origin_order
+        if isinstance(n, bool) or not isinstance(n, int) or abs(n) > MAX_ORIGIN_ORDER:
             raise _FieldError(
-                f"origin_order must be an integer (got {self.origin_order!r})", "origin_order"
+                f"origin_order must be an integer in -{MAX_ORIGIN_ORDER} … {MAX_ORIGIN_ORDER} (got {shown(n)})",
+                "origin_order",
+            )
+        order = abs(n) + sum(len(getattr(self, k)) for k in ("zeros_hz", "poles_hz", "rhp_zeros_hz", "rhp_poles_hz"))
+        order += 2 * (len(self.zero_pairs) + len(self.pole_pairs))
+        if order > MAX_ORDER:
+            raise _FieldError(
+                f"the plant has {order} roots (pairs count 2, the origin order counts); the limit is {MAX_ORDER}",
+                "poles_hz" if self.poles_hz else "",
             )
         for name in ("zeros_hz", "poles_hz", "rhp_zeros_hz", "rhp_poles_hz"):
             for i, f in enumerate(getattr(self, name)):
                 try:
-                    _positive(name, f, "Hz")
+                    _in(ROOT_FREQUENCY, name, f)
                 except _FieldError as exc:
                     raise _FieldError(str(exc), f"{name}[{i}]") from None
         for name in ("zero_pairs", "pole_pairs"):
             for i, pair in enumerate(getattr(self, name)):
                 if not isinstance(pair, ResonantPair):
                     raise _FieldError(
-                        f"{name}[{i}] must be a ResonantPair (got {pair!r})", f"{name}[{i}]"
+                        f"{name}[{i}] must be a ResonantPair (got {shown(pair)})", f"{name}[{i}]"
                     )
                 try:
-                    _positive("f0_hz", pair.f0_hz, "Hz")
-                    _positive("q", pair.q, "")
+                    _in(ROOT_FREQUENCY, "f0_hz", pair.f0_hz)
+                    _in(Q_RANGE, "q", pair.q)
                 except _FieldError as exc:
                     raise _FieldError(f"{name}[{i}].{exc}", f"{name}[{i}].{exc.field}") from None
                 if not isinstance(pair.rhp, bool):
                     raise _FieldError(
-                        f"{name}[{i}].rhp must be true or false (got {pair.rhp!r})",
+                        f"{name}[{i}].rhp must be true or false (got {shown(pair.rhp)})",
                         f"{name}[{i}].rhp",
                     )
 
@@ -258,8 +291,8 @@ class GeneralPlant(Plant):
         ):
             fs += [Factor(role, 1, _TWO_PI * f) for f in lhp]
             fs += [Factor(role, 1, _TWO_PI * f, rhp=True) for f in rhp]
-            fs += [Factor(role, 2, _TWO_PI * p.f0_hz, q=float(p.q), rhp=p.rhp) for p in pairs]
-        return FactoredNumeric(float(self.gain), self.origin_order, tuple(fs))
+            fs += [Factor(role, 2, _TWO_PI * p.f0_hz, q=real_float(p.q), rhp=p.rhp) for p in pairs]
+        return FactoredNumeric(real_float(self.gain), self.origin_order, tuple(fs))
 
     def describe(self) -> str:
         """Return the factored form and its numbers, as plain text."""
@@ -317,15 +350,44 @@ class PolynomialPlant(Plant):
             coeffs = getattr(self, name)
             if not isinstance(coeffs, tuple) or not coeffs:
                 raise _FieldError(
-                    f"{name} must be a non-empty tuple of coefficients (got {coeffs!r})", name
+                    f"{name} must be a non-empty tuple of coefficients (got {shown(coeffs)})", name
+                )
+            if len(coeffs) > MAX_COEFFICIENTS:
+                raise _FieldError(
+                    f"{name} has {len(coeffs)} coefficients; the limit is {MAX_COEFFICIENTS} (degree "
+                    f"{MAX_COEFFICIENTS - 1})",
+                    name,
                 )
             for i, c in enumerate(coeffs):
-                if isinstance(c, bool) or not isinstance(c, int | float) or not math.isfinite(c):
+                if isinstance(c, bool) or not isinstance(c, int | float) or not math.isfinite(real_float(c)):
                     raise _FieldError(
-                        f"{name}[{i}] must be a finite number (got {c!r})", f"{name}[{i}]"
+                        f"{name}[{i}] must be a finite number (got {shown(c)})", f"{name}[{i}]"
                     )
             if all(c == 0 for c in coeffs):
-                raise _FieldError(f"{name} must have a non-zero coefficient (got {coeffs!r})", name)
+                raise _FieldError(f"{name} must have a non-zero coefficient (got {shown(coeffs)})", name)
+        self._check_roots()
+
+    def _check_roots(self) -> None:
+        """Factor now, so a plant whose K or roots leave the accepted ranges is refused on load."""
+        try:
+            with np.errstate(all="ignore"):  # extreme coefficients overflow inside numpy; the result is checked
+                fn = factored_from_tf([real_float(c) for c in self.num], [real_float(c) for c in self.den])
+        except (AnalysisError, ArithmeticError, ValueError, np.linalg.LinAlgError) as err:
+            raise _FieldError(f"num/den cannot be factored: {err}", "den") from None
+        if not GAIN.contains(fn.gain):
+            raise _FieldError(
+                f"K = (lowest non-zero num coefficient)/(lowest non-zero den coefficient) = {fn.gain:.4g} "
+                f"must lie in {GAIN.text}",
+                "num",
+            )
+        for f in fn.factors:
+            if not ROOT_FREQUENCY.contains(f.f_hz):
+                key = "num" if f.role == "zero" else "den"
+                raise _FieldError(
+                    f"{key} has a {f.role}{' pair' if f.order == 2 else ''} at {f.f_hz:.4g} Hz, outside "
+                    f"{ROOT_FREQUENCY.text}",
+                    key,
+                )
 
     def factored(self) -> FactoredNumeric:
         """Factored form from the polynomial roots (scaled ``numpy.roots``).
@@ -337,7 +399,7 @@ class PolynomialPlant(Plant):
             told from one at the origin.
         """
         try:
-            return factored_from_tf(self.num, self.den)
+            return factored_from_tf([real_float(c) for c in self.num], [real_float(c) for c in self.den])
         except AnalysisError as err:
             raise AnalysisError(f"{err}; factor the plant and use kind 'general'") from err
 
@@ -409,13 +471,13 @@ class BuckVoltageMode(Plant):
     dcr_ohm: float = 0.0
 
     def __post_init__(self) -> None:
-        _positive("vin_v", self.vin_v, "V")
-        _positive("l_h", self.l_h, "H")
-        _positive("c_f", self.c_f, "F")
-        _positive("load_ohm", self.load_ohm, "Ω")
-        _positive("ramp_v", self.ramp_v, "V")
-        _nonnegative("esr_ohm", self.esr_ohm, "Ω")
-        _nonnegative("dcr_ohm", self.dcr_ohm, "Ω")
+        _in(VOLTAGE, "vin_v", self.vin_v)
+        _in(INDUCTANCE, "l_h", self.l_h)
+        _in(CAPACITANCE, "c_f", self.c_f)
+        _in(RESISTANCE, "load_ohm", self.load_ohm)
+        _in(RAMP, "ramp_v", self.ramp_v)
+        _in(PARASITIC, "esr_ohm", self.esr_ohm)
+        _in(PARASITIC, "dcr_ohm", self.dcr_ohm)
 
     @property
     def dc_gain(self) -> float:
@@ -534,17 +596,11 @@ class PeakCurrentBuck(Plant):
     mc: float = 1.0
 
     def __post_init__(self) -> None:
-        _positive("load_ohm", self.load_ohm, "Ω")
-        _positive("c_f", self.c_f, "F")
-        _positive("ri_ohm", self.ri_ohm, "V/A")
-        _nonnegative("esr_ohm", self.esr_ohm, "Ω")
-        if not (
-            isinstance(self.mc, int | float)
-            and not isinstance(self.mc, bool)
-            and math.isfinite(self.mc)
-            and self.mc >= 1.0
-        ):
-            raise _FieldError(f"mc = 1 + Se/Sn must be finite and >= 1 (got {self.mc!r})", "mc")
+        _in(RESISTANCE, "load_ohm", self.load_ohm)
+        _in(CAPACITANCE, "c_f", self.c_f)
+        _in(SENSE_GAIN, "ri_ohm", self.ri_ohm)
+        _in(PARASITIC, "esr_ohm", self.esr_ohm)
+        _in(MC_RANGE, "mc", self.mc, " = 1 + Se/Sn")
         if self.f_sw_hz is None:
             if self.duty is not None:
                 raise _FieldError(
@@ -560,12 +616,12 @@ class PeakCurrentBuck(Plant):
                     "mc",
                 )
             return
-        _positive("f_sw_hz", self.f_sw_hz, "Hz")
+        _in(FREQUENCY, "f_sw_hz", self.f_sw_hz)
         if self.duty is None:
             raise _FieldError(
                 "f_sw_hz needs duty (the duty cycle D) for the fs/2 double pole", "duty"
             )
-        _duty("duty", self.duty)
+        _in(DUTY, "duty", self.duty, " (duty cycle)")
         if self.mc * (1.0 - self.duty) <= 0.5:
             raise _FieldError(
                 f"mc·(1 − D) = {self.mc!r}·(1 − {self.duty!r}) = {self.mc * (1.0 - self.duty):.4g} "
@@ -697,13 +753,13 @@ class BoostVoltageMode(Plant):
     esr_ohm: float = 0.0
 
     def __post_init__(self) -> None:
-        _positive("vin_v", self.vin_v, "V")
-        _duty("duty", self.duty)
-        _positive("l_h", self.l_h, "H")
-        _positive("c_f", self.c_f, "F")
-        _positive("load_ohm", self.load_ohm, "Ω")
-        _positive("ramp_v", self.ramp_v, "V")
-        _nonnegative("esr_ohm", self.esr_ohm, "Ω")
+        _in(VOLTAGE, "vin_v", self.vin_v)
+        _in(DUTY, "duty", self.duty, " (duty cycle)")
+        _in(INDUCTANCE, "l_h", self.l_h)
+        _in(CAPACITANCE, "c_f", self.c_f)
+        _in(RESISTANCE, "load_ohm", self.load_ohm)
+        _in(RAMP, "ramp_v", self.ramp_v)
+        _in(PARASITIC, "esr_ohm", self.esr_ohm)
 
     @property
     def d_prime(self) -> float:
@@ -811,34 +867,9 @@ def _unit_of_key(key: str) -> str:
 
 
 def _read_number(value: Any, where: str, name: str, unit: str, *, signed: bool = False) -> float:
-    """Read a number or engineering text; ``unit`` is a key of ``_UNITS``."""
-    if isinstance(value, bool) or not isinstance(value, int | float | str):
-        raise DesignFileError(
-            f"{name} must be a number or engineering text such as '10k' "
-            f"(got {type(value).__name__} {value!r})",
-            where,
-        )
-    if isinstance(value, int | float):
-        x = float(value)
-    else:
-        text = value.strip()
-        sign = 1.0
-        if signed and text and text[0] in "+-":
-            sign = -1.0 if text[0] == "-" else 1.0
-            text = text[1:].lstrip()
-        unit_re, kind = _UNITS.get(unit, ("", None))
-        bare = re.sub(rf"\s*{unit_re}\s*$", "", text) if unit_re else text
-        try:
-            x = sign * float(bare)  # plain numbers, including 0
-        except ValueError:
-            try:
-                # parse_value knows Ω/F/H itself; other units are stripped first.
-                x = sign * parse_value(text if kind else bare, name=name, kind=kind)
-            except ComponentValueError as exc:
-                raise DesignFileError(str(exc), where) from exc
-    if not math.isfinite(x):
-        raise DesignFileError(f"{name} must be finite (got {value!r})", where)
-    return x
+    """Read a number or engineering text; ``unit`` is a key of ``_UNITS`` (ranges are checked by the class)."""
+    unit_re, kind = _UNITS.get(unit, ("", None))
+    return read_number(value, where, name, unit=unit_re or None, kind=kind, signed=signed)
 
 
 def _read_list(
@@ -846,7 +877,10 @@ def _read_list(
 ) -> tuple[Any, ...]:
     value = d[key]
     if isinstance(value, str) or not isinstance(value, Sequence):
-        raise DesignFileError(f"{key} must be a list (got {type(value).__name__} {value!r})", where)
+        raise DesignFileError(f"{key} must be a list (got {type(value).__name__} {shown(value)})", where)
+    limit = MAX_COEFFICIENTS if key in ("num", "den") else MAX_ORDER
+    if len(value) > limit:
+        raise DesignFileError(f"{key} has {len(value)} entries; the limit is {limit}", where)
     return tuple(item(v, f"{where}[{i}]") for i, v in enumerate(value))
 
 
@@ -854,7 +888,7 @@ def _check_keys(d: Mapping[str, Any], allowed: Sequence[str], key_path: str, wha
     for k in d:
         if k not in allowed:
             raise DesignFileError(
-                f"unknown key {k!r} for {what} (expected one of {', '.join(allowed)})",
+                f"unknown key {shown(k)} for {what} (expected one of {', '.join(allowed)})",
                 f"{key_path}.{k}",
             )
 
@@ -867,14 +901,14 @@ def _construct(
     except _FieldError as exc:
         head, sep, rest = exc.field.partition("[")
         head = source.get(head, head)
-        raise DesignFileError(str(exc), f"{key_path}.{head}{sep}{rest}") from exc
+        raise DesignFileError(str(exc), f"{key_path}.{head}{sep}{rest}" if head else key_path) from exc
 
 
 def _read_pair(value: Any, where: str) -> ResonantPair:
     if not isinstance(value, Mapping):
         raise DesignFileError(
             "a root pair must be a mapping with keys f0_hz and q "
-            f"(got {type(value).__name__} {value!r})",
+            f"(got {type(value).__name__} {shown(value)})",
             where,
         )
     _check_keys(value, ("f0_hz", "q", "rhp"), where, "a root pair")
@@ -883,7 +917,7 @@ def _read_pair(value: Any, where: str) -> ResonantPair:
             raise DesignFileError(f"missing key {k!r} (a root pair needs f0_hz and q)", where)
     rhp = value.get("rhp", False)
     if not isinstance(rhp, bool):
-        raise DesignFileError(f"rhp must be true or false (got {rhp!r})", f"{where}.rhp")
+        raise DesignFileError(f"rhp must be true or false (got {shown(rhp)})", f"{where}.rhp")
     return ResonantPair(
         _read_number(value["f0_hz"], f"{where}.f0_hz", "f0_hz", "Hz"),
         _read_number(value["q"], f"{where}.q", "q", ""),
@@ -915,7 +949,7 @@ def _general_from_dict(d: Mapping[str, Any], key_path: str) -> Plant:
         n = d["origin_order"]
         if isinstance(n, bool) or not isinstance(n, int):
             raise DesignFileError(
-                f"origin_order must be an integer (>0 zeros, <0 poles at the origin), got {n!r}",
+                f"origin_order must be an integer (>0 zeros, <0 poles at the origin), got {shown(n)}",
                 f"{key_path}.origin_order",
             )
         kwargs["origin_order"] = n
@@ -972,7 +1006,7 @@ def _circuit_from_dict(kind: str, d: Mapping[str, Any], key_path: str) -> Plant:
             raise DesignFileError(
                 "kind 'boost_vm' needs exactly one of 'vout_v' (V) or 'duty' (D) "
                 "for the operating point"
-                + (f" (got vout_v={d['vout_v']!r} and duty={d['duty']!r})" if has_vout else ""),
+                + (f" (got vout_v={shown(d['vout_v'])} and duty={shown(d['duty'])})" if has_vout else ""),
                 f"{key_path}.vout_v" if has_vout else key_path,
             )
         if has_vout:
@@ -980,13 +1014,19 @@ def _circuit_from_dict(kind: str, d: Mapping[str, Any], key_path: str) -> Plant:
             _construct(
                 BoostVoltageMode, {**kwargs, "duty": 0.5}, key_path, {}
             )  # checks vin_v etc. first
-            if not (math.isfinite(vout) and vout > kwargs["vin_v"]):
+            if not (VOLTAGE.contains(vout) and vout > kwargs["vin_v"]):
                 raise DesignFileError(
-                    f"vout_v must be above vin_v = {kwargs['vin_v']!r} V for a boost converter "
-                    f"(got {d['vout_v']!r})",
+                    f"vout_v must be above vin_v = {kwargs['vin_v']!r} V for a boost converter and lie in "
+                    f"{VOLTAGE.text} (got {shown(d['vout_v'])})",
                     f"{key_path}.vout_v",
                 )
             kwargs["duty"] = 1.0 - kwargs["vin_v"] / vout
+            if not DUTY.contains(kwargs["duty"]):
+                raise DesignFileError(
+                    f"vout_v {shown(d['vout_v'])} with vin_v {kwargs['vin_v']!r} V needs a duty cycle "
+                    f"D = 1 − vin/vout = {kwargs['duty']:.6g}, outside {DUTY.text}",
+                    f"{key_path}.vout_v",
+                )
             source["duty"] = "vout_v"
     return _construct(_PLANT_CLASSES[kind], kwargs, key_path, source)
 
@@ -1028,7 +1068,7 @@ def plant_from_dict(d: Mapping[str, Any], key_path: str = "plant") -> Plant:
     """
     if not isinstance(d, Mapping):
         raise DesignFileError(
-            f"expected a mapping describing the plant, got {type(d).__name__} {d!r}", key_path
+            f"expected a mapping describing the plant, got {type(d).__name__} {shown(d)}", key_path
         )
     if "kind" not in d:
         raise DesignFileError(
@@ -1037,7 +1077,7 @@ def plant_from_dict(d: Mapping[str, Any], key_path: str = "plant") -> Plant:
     kind = d["kind"]
     if not isinstance(kind, str) or kind not in _PLANT_CLASSES:
         raise DesignFileError(
-            f"unknown plant kind {kind!r} (expected one of {', '.join(PLANT_KINDS)})",
+            f"unknown plant kind {shown(kind)} (expected one of {', '.join(PLANT_KINDS)})",
             f"{key_path}.kind",
         )
     if kind == "general":

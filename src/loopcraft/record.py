@@ -22,13 +22,14 @@ import html
 import math
 import os
 import re
-import tempfile
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
 
+from ._files import atomic_write
 from ._symbols import element_kind
+from ._text import check_text, markdown_code, markdown_text
 from .design import Design
 from .errors import LoopcraftError
 from .eseries import is_standard, nearest, series_of, series_values
@@ -239,14 +240,23 @@ class DesignRecord:
         esc = html.escape
         out = []
         if self.loop is not None:
+            ok = self.loop.get("stable", True)
+            color = "#1f7a45" if ok else "#a12828"
+            head = self.loop.get("headline")
+            if head:
+                word, _, rest = head.partition(":")
+                notes = "".join(f"<br><small>{esc(n)}</small>" for n in self.loop.get("notes", []))
+                out.append(f'<p class="lc-verdict" style="color:{color}"><b>{esc(word)}</b>:{esc(rest)}{notes}</p>')
+            pm_word = "phase margin" if ok else "180° + ∠L (not a margin: unstable)"
+            gm_word = "gain margin" if ok else "−20·log10|L| (not a margin: unstable)"
             rows = "".join(
                 f"<tr><td>crossover {i + 1}</td><td>{esc(format_value(c['f_hz'], 'Hz', digits=4))}</td>"
-                f"<td>phase margin {c['phase_margin_deg']:.2f}°</td></tr>"
+                f"<td>{pm_word} {c['phase_margin_deg']:.2f}°</td></tr>"
                 for i, c in enumerate(self.loop["crossovers"])
             ) or '<tr><td colspan="3">the loop gain never crosses 0 dB in the analysed band</td></tr>'
             rows += "".join(
                 f"<tr><td>phase crossover {i + 1}</td><td>{esc(format_value(g['f_hz'], 'Hz', digits=4))}</td>"
-                f"<td>gain margin {g['gain_margin_db']:.2f} dB</td></tr>"
+                f"<td>{gm_word} {g['gain_margin_db']:.2f} dB</td></tr>"
                 for i, g in enumerate(self.loop["gain_margins"])
             )
             out.append(f"<h3>Loop around the plant</h3><table><tbody>{rows}</tbody></table>")
@@ -270,13 +280,19 @@ class DesignRecord:
 
     # -- Markdown ------------------------------------------------------------
     def to_markdown(self) -> str:
-        """The record as Markdown (pipe tables, math in ``$$``, figures as data-URI images)."""
+        """The record as Markdown (pipe tables, math in ``$$``, figures as data-URI images).
+
+        Every piece of user text (title, notes, values as written, spec names and messages,
+        remarks) is made inert: HTML-escaped, its Markdown syntax escaped, ``javascript:``
+        and similar link schemes broken (:func:`loopcraft._text.markdown_text`), or written
+        as a code span (:func:`loopcraft._text.markdown_code`).
+        """
         d = self.design
         ff = d.factored()
         out: list[str] = [f"# {_md_text(self.title)}", ""]
-        meta = f"Recorded {self.created} with loopcraft {self.version} · stage: {d.stage.kind}"
+        meta = f"Recorded {self.created} with loopcraft {self.version} · stage: {_md_text(d.stage.kind)}"
         if d.plant is not None:
-            meta += f" · plant: {d.plant.kind}"
+            meta += f" · plant: {_md_text(d.plant.kind)}"
         out += [meta, ""]
         if self.cautions:
             out += ["## Cautions", ""] + [f"- **{_md_text(c)}**" for c in self.cautions] + [""]
@@ -289,24 +305,33 @@ class DesignRecord:
         from ._figures import equation_png
 
         eq = base64.b64encode(equation_png(ff.symbolic_latex())).decode("ascii")
-        out += ["## Transfer function", "", f"Stage: `{_stage_text(d)}`", "", "$$", ff.symbolic_latex(), "$$", "",
-                f"![H(s)](data:image/png;base64,{eq})", ""]
-        out += [f"K = `{ff.gain_formula}` = {ff.gain:.6g}", ""]
+        out += ["## Transfer function", "", f"Stage: {markdown_code(_stage_text(d))}", "",
+                "$$", ff.symbolic_latex(), "$$", "", f"![H(s)](data:image/png;base64,{eq})", ""]
+        out += [f"K = {markdown_code(ff.gain_formula)} = {ff.gain:.6g}", ""]
         rows = [("corner", "formula (rad/s)", "value")]
         rows += [(name, formula, value) for name, formula, value in _corner_rows(ff)]
         out += _md_table(rows) + [""]
         out += ["## Component values", ""]
         rows = [("part", "value", "as written", "coarsest E-series", f"in {self.series}")]
-        rows += [(v.name, v.formatted, f"`{v.given}`", v.series or "none", v.mark(self.series)) for v in self.values]
+        rows += [(v.name, v.formatted, _Md(markdown_code(v.given)), v.series or "none", v.mark(self.series))
+                 for v in self.values]
         out += _md_table(rows) + [""]
         if self.loop is not None or self.amplifier_loop is not None:
             out += ["## Margins", ""]
             if self.loop is not None:
+                ok = self.loop.get("stable", True)
+                if self.loop.get("headline"):
+                    word, _, rest = self.loop["headline"].partition(":")
+                    out += [f"**{_md_text(word)}**:{_md_text(rest)}", ""]
+                    out += [f"- {_md_text(n)}" for n in self.loop.get("notes", [])]
+                    out += [""] if self.loop.get("notes") else []
+                pm_word = "phase margin" if ok else "180° + ∠L (not a margin: unstable)"
+                gm_word = "gain margin" if ok else "−20·log10|L| (not a margin: unstable)"
                 rows = [("loop around the plant", "frequency", "margin")]
                 rows += [(f"crossover {i + 1}", format_value(c["f_hz"], "Hz", digits=4),
-                          f"phase margin {c['phase_margin_deg']:.2f}°") for i, c in enumerate(self.loop["crossovers"])]
+                          f"{pm_word} {c['phase_margin_deg']:.2f}°") for i, c in enumerate(self.loop["crossovers"])]
                 rows += [(f"phase crossover {i + 1}", format_value(g["f_hz"], "Hz", digits=4),
-                          f"gain margin {g['gain_margin_db']:.2f} dB") for i, g in enumerate(self.loop["gain_margins"])]
+                          f"{gm_word} {g['gain_margin_db']:.2f} dB") for i, g in enumerate(self.loop["gain_margins"])]
                 if not self.loop["crossovers"]:
                     rows.append(("crossover", "none", "the loop gain never crosses 0 dB in the analysed band"))
                 out += _md_table(rows) + [""]
@@ -355,8 +380,12 @@ class DesignRecord:
         Raises
         ------
         LoopcraftError
-            An unknown suffix, or the file cannot be written (the old file, if any, is left intact
-            and no temporary file remains).
+            An unknown suffix.
+        FileWriteError
+            The file cannot be written (the old file, if any, is left intact and no temporary
+            file remains). An overwritten file keeps its permission bits; a symbolic link at
+            ``path`` is followed and the file it leads to is replaced (see
+            :func:`loopcraft._files.atomic_write`).
         """
         p = Path(path)
         fmt = _SUFFIXES.get(p.suffix.lower())
@@ -366,8 +395,7 @@ class DesignRecord:
                 f"expected one of {', '.join(_SUFFIXES)}"
             )
         text = self.to_html() if fmt == "html" else self.to_markdown()
-        _atomic_write(p, text)
-        return p
+        return atomic_write(p, text)
 
 
 # --------------------------------------------------------------------------- helpers
@@ -405,12 +433,19 @@ def _html_lines(text: str) -> str:
     return "<br>".join(html.escape(line) for line in text.splitlines())
 
 
+class _Md(str):
+    """A Markdown fragment made here (already inert): a table cell keeps it as it is."""
+
+
 def _md_text(text: str) -> str:
-    return " ".join(line.strip() for line in text.splitlines())
+    """User or model text made inert in Markdown, on one line (see :func:`loopcraft._text.markdown_text`)."""
+    return markdown_text(text)
 
 
 def _md_cell(text: str) -> str:
-    return _md_text(str(text)).replace("|", "\\|")
+    if isinstance(text, _Md):
+        return " ".join(text.splitlines()).replace("|", "\\|")
+    return markdown_text(text)  # escapes | too
 
 
 def _md_table(rows: list[tuple[str, ...]]) -> list[str]:
@@ -440,10 +475,14 @@ def _corner_rows(ff) -> list[tuple[str, str, str]]:
     for c in ff.corners:  # labels as in FactoredForm: ωz1, ωp1, ω0p1 (Qp1)
         counts[c.role] += 1
         tag = ("z" if c.role == "zero" else "p") + str(counts[c.role])
+        if getattr(c, "cancelled", False):
+            continue  # shown as a cancellation line, not as a corner
         name = f"ω{tag}" if c.order == 1 else f"ω0{tag}"
         value = f"{c.omega_rad_s:.4g} rad/s ({format_value(c.f_hz, 'Hz')})"
         if c.order == 2:
-            value += f", Q{tag} = {c.q:.4g}" + (f" (Q = {c.q_formula})" if c.q_formula else "")
+            value += f", Q{tag} = {c.q_text}" + (f" (Q = {c.q_formula})" if c.q_formula else "")
+            if c.q_infinite:
+                value += ", on the jω axis"
         if c.rhp:
             value += ", right half plane"
         rows.append((name, c.formula or "numeric at current values", value))
@@ -525,6 +564,12 @@ def spread_header(spread: dict) -> list[str]:
     tol = ", ".join(f"{k} ±{100 * v:g} %" for k, v in spread.get("tolerances", {}).items())
     lines = [f"{spread.get('samples')} samples, seed {spread.get('seed')}, {spread.get('distribution')} distribution; "
              f"tolerances: {tol or 'none'}"]
+    if spread.get("unstable_fraction") is not None:
+        u = float(spread["unstable_fraction"])
+        if u > 0:
+            lines.append(f"closed loop: UNSTABLE in {100 * u:.2f} % of samples (each fails every spec item)")
+        else:
+            lines.append("closed loop: stable in every sample (closed-loop poles counted per sample)")
     if spread.get("yield") is not None:
         y = float(spread["yield"])
         per = spread.get("item_yield") or {}
@@ -539,26 +584,6 @@ def _spread_html(spread: dict) -> str:
     th = "".join(f"<th>{html.escape(c)}</th>" for c in head)
     tb = "".join("<tr>" + "".join(f"<td>{html.escape(c)}</td>" for c in r) + "</tr>" for r in body)
     return f"{lines}<table><thead><tr>{th}</tr></thead><tbody>{tb}</tbody></table>"
-
-
-def _atomic_write(path: Path, text: str) -> None:
-    folder = path.parent if str(path.parent) else Path(".")
-    try:
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=folder)
-    except OSError as err:
-        raise LoopcraftError(f"cannot write {str(path)!r}: {err.strerror or err}") from err
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as fh:
-            fh.write(text)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.replace(tmp, path)
-    except BaseException as err:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        if isinstance(err, OSError):
-            raise LoopcraftError(f"cannot write {str(path)!r}: {err.strerror or err}") from err
-        raise
 
 
 def _value_rows(design: Design, series: str) -> tuple[ValueRow, ...]:
@@ -607,11 +632,14 @@ def record(
 
     Raises
     ------
+    DesignFileError
+        ``notes`` is not text or holds a lone surrogate (key path ``notes``).
     ComponentValueError
         An unknown series name.
     LoopcraftError
         The design cannot be analysed (the analysis error passes through).
     """
+    check_text(notes, "notes")
     series_values(series)
     canon = series.strip().upper()
     from . import __version__
@@ -620,7 +648,7 @@ def record(
     if stamp.tzinfo is None:
         stamp = stamp.replace(tzinfo=UTC)
     a = design.analyze()
-    loop = a.loop.margins.to_dict() if a.loop is not None else None
+    loop = a.loop.to_dict() if a.loop is not None else None
     amp = a.actual.amplifier_loop if a.actual is not None else None
     amp_dict = amp.to_dict() if amp is not None else None
     remarks: list[str] = []
@@ -655,7 +683,8 @@ def record(
 
     from ._figures import bode_png, pole_zero_png
 
-    bode = bode_png(design, a.loop.margins if a.loop is not None else None, amp, spread=spread_obj)
+    bode = bode_png(design, a.loop.margins if a.loop is not None else None, amp, spread=spread_obj,
+                    stable=a.loop.stability.stable if a.loop is not None else True)
     pz = pole_zero_png(design)
     cautions = CONVERTER_CAUTIONS if design.plant is not None else ()
     return DesignRecord(

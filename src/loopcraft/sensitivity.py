@@ -11,6 +11,12 @@ so S = -1 means "1 % more x moves y 1 % down". Where the corner has a formula
 (first- and second-order factors over the symbols) the sensitivity is derived
 symbolically once per topology and compiled; for factors solved numerically
 it is a central difference in ln x on the compiled evaluator.
+
+A second-order factor with no damping term at the current values (an ideal
+LC pair, a pole or zero pair on the jω axis) has an unbounded Q: it gets its
+ω0 row and no Q row. Every sensitivity returned is a finite number; where one
+is undefined at the given values (a corner that degenerates to 0 or infinity)
+:func:`sensitivity` raises :class:`~loopcraft.errors.AnalysisError` instead.
 """
 
 from __future__ import annotations
@@ -24,6 +30,7 @@ import numpy as np
 import sympy as sp
 
 from .derivation import Derivation, formula_text
+from .errors import AnalysisError
 from .evaluator import Evaluator, _poly_roots, compile_derivation
 
 __all__ = ["CornerSensitivity", "Sensitivity", "sensitivity"]
@@ -102,7 +109,7 @@ def _symbolic(derivation: Derivation):
             out.append(None)
             continue
         quantities = [("omega", f.corner_expr)]
-        if f.degree == 2:
+        if f.degree == 2 and f.coefficients[1] != 0:  # no Q row for a pair that is lossless by topology
             quantities.append(("q", f.q_expr))
         entry = []
         for qname, y in quantities:
@@ -118,13 +125,17 @@ def _corner_values(ev: Evaluator, vals: tuple[float, ...]) -> list[list[tuple[st
     """Per layout factor: [(quantity, value), ...] from the compiled coefficients."""
     c = ev.coefficients(vals)
     out = []
-    for _role, degree, _mult, off in ev._layout:
-        a = [c[off + k] / c[off] for k in range(degree + 1)]
+    for role, degree, _mult, off in ev._layout:
+        coeffs = c[off : off + degree + 1]
+        if c[off] == 0 or not all(math.isfinite(x) for x in coeffs) or coeffs[-1] == 0:
+            raise AnalysisError(f"a {role} factor degenerates at these values; its sensitivities are undefined")
+        a = [x / c[off] for x in coeffs]
         if degree == 1:
             out.append([("omega", abs(1.0 / a[1]))])
         elif degree == 2 and a[2] > 0:
             w0 = 1.0 / math.sqrt(a[2])
-            out.append([("omega", w0), ("q", 1.0 / (w0 * abs(a[1])))])
+            # A pair with no damping term (Q infinite) has no Q row.
+            out.append([("omega", w0)] + ([("q", 1.0 / (w0 * abs(a[1])))] if a[1] != 0 else []))
         else:
             roots = _poly_roots(a) if degree > 2 else np.roots(a[::-1])
             out.append([("omega", float(abs(r))) for r in sorted(roots, key=abs)])
@@ -164,10 +175,26 @@ def sensitivity(design, values: Mapping[str, float] | None = None, *, rel_step: 
         return numeric_cache[key]
 
     rows: list[tuple[float, CornerSensitivity]] = []
-    for i, ((role, _deg, _mult, _off), entry) in enumerate(zip(ev._layout, sym, strict=True)):
-        if entry is not None:
-            for (qname, fn, texts), (_q, value) in zip(entry, base[i], strict=True):
-                s = fn(*vals)
+    pairs: set[int] = set()  # factors reported as ω0 (and Q) of a second-order factor
+    for i, ((role, deg, _mult, _off), entry) in enumerate(zip(ev._layout, sym, strict=True)):
+        # Closed form: first order, or a second-order factor with complex roots (ω0, and Q when damped);
+        # a second-order factor with real roots of opposite sign is two numeric roots instead.
+        closed = entry is not None and (deg == 1 or [q for q, _ in base[i]] in (["omega"], ["omega", "q"]))
+        if closed and deg == 2:
+            pairs.add(i)
+        if closed:
+            fns = {qname: (fn, texts) for qname, fn, texts in entry}
+            for qname, value in base[i]:
+                fn, texts = fns[qname]
+                try:
+                    s = [float(x) for x in fn(*vals)]
+                except (ArithmeticError, ValueError, TypeError):
+                    s = [math.nan]
+                if not all(math.isfinite(x) for x in s):
+                    raise AnalysisError(
+                        f"the sensitivity of a {role}'s {'Q' if qname == 'q' else 'corner'} is undefined at "
+                        "these values (it degenerates to 0 or infinity)"
+                    )
                 rows.append(
                     (
                         i,
@@ -176,7 +203,7 @@ def sensitivity(design, values: Mapping[str, float] | None = None, *, rel_step: 
                             role,
                             qname,
                             value,
-                            dict(zip(names, map(float, s), strict=True)),
+                            dict(zip(names, s, strict=True)),
                             dict(zip(names, texts, strict=True)),
                         ),
                     )
@@ -185,28 +212,42 @@ def sensitivity(design, values: Mapping[str, float] | None = None, *, rel_step: 
             for k, (qname, value) in enumerate(base[i]):
                 by = {}
                 for j, n in enumerate(names):
-                    up = perturbed(j, 1.0)[i][k][1]
-                    dn = perturbed(j, -1.0)[i][k][1]
-                    by[n] = (math.log(up) - math.log(dn)) / (2 * rel_step)
+                    try:
+                        up = perturbed(j, 1.0)[i][k][1]
+                        dn = perturbed(j, -1.0)[i][k][1]
+                        by[n] = (math.log(up) - math.log(dn)) / (2 * rel_step)
+                    except (IndexError, ArithmeticError, ValueError):
+                        by[n] = math.nan
+                    if not math.isfinite(by[n]):
+                        raise AnalysisError(
+                            f"the sensitivity of a {role} to {n} is undefined at these values "
+                            "(a root degenerates or changes kind under a small step)"
+                        )
                 rows.append((i, CornerSensitivity("", role, qname, value, by, None)))
-    return Sensitivity(_label(rows))
+    return Sensitivity(_label(rows, pairs))
 
 
-def _label(rows: list[tuple[int, CornerSensitivity]]) -> tuple[CornerSensitivity, ...]:
-    """Number the corners as the factored form does: zeros then poles, by frequency."""
+def _label(rows: list[tuple[int, CornerSensitivity]], pairs: set[int] | None = None) -> tuple[CornerSensitivity, ...]:
+    """Number the corners as the factored form does: zeros then poles, by frequency.
+
+    ``pairs`` holds the factors reported as a second-order factor (ω0 and Q); a lossless one
+    has only its ω0 row, still labelled ``ω0…``.
+    """
+    pairs = pairs or set()
     groups: dict[tuple[int, int], list[CornerSensitivity]] = {}
     for n, (i, r) in enumerate(rows):
         # A Q row joins the ω0 row of its factor; numeric factors give one group per root.
-        key = (i, -1) if r.quantity == "q" or (i, -1) not in groups and _has_q(rows, i) else (i, n)
+        pair = _has_q(rows, i) or i in pairs
+        key = (i, -1) if r.quantity == "q" or (i, -1) not in groups and pair else (i, n)
         groups.setdefault(key, []).append(r)
     out = []
     for role, tag in (("zero", "z"), ("pole", "p")):
-        mine = sorted((g for g in groups.values() if g[0].role == role), key=lambda g: g[0].value)
-        for n, g in enumerate(mine, start=1):
+        mine = sorted((kg for kg in groups.items() if kg[1][0].role == role), key=lambda kg: kg[1][0].value)
+        for n, (key, g) in enumerate(mine, start=1):
             if len(g) == 2:
                 out += [replace(g[0], label=f"ω0{tag}{n}"), replace(g[1], label=f"Q{tag}{n}")]
             else:
-                out.append(replace(g[0], label=f"ω{tag}{n}"))
+                out.append(replace(g[0], label=f"ω0{tag}{n}" if key[1] == -1 else f"ω{tag}{n}"))
     return tuple(out)
 
 

@@ -15,11 +15,21 @@ The section, every key optional::
 
 Definitions (the same at nominal values and per Monte Carlo sample):
 
+* **stable** — an implicit item of every design with a plant, listed first:
+  the closed loop must be stable (closed-loop poles counted, cross-checked by
+  the Nyquist criterion: :mod:`loopcraft.stability`). When it is not, every
+  margin item fails too, whatever its value: a margin of an unstable loop is
+  not a margin;
 * **phase margin** — the minimum of ``180° + ∠L`` over *every* gain crossover
-  ``|L| = 1`` in the analysed band (``L`` as in :mod:`loopcraft.loop`);
-* **gain margin** — the minimum of ``-20·log10|L|`` over every phase crossover
-  ``∠L = -180° (mod 360°)``; when the phase never reaches -180° in the band
-  the gain margin is unbounded there and the item passes, saying so;
+  ``|L| = 1`` in the analysed band (``L`` as in :mod:`loopcraft.loop`, ∠L its
+  continuous phase, never wrapped);
+* **gain margin** — the smaller of the gain-increase and the gain-reduction
+  margin: how far the loop gain may rise (or, for a conditionally stable loop,
+  fall) before the closed loop goes unstable, found exactly from the closed-loop
+  poles at the gains of every phase crossover ``∠L = -180° (mod 360°)``; when no
+  rise or fall makes it unstable the margin is unbounded and the item passes,
+  saying so. Per Monte Carlo sample it is the smallest ``|20·log10|L||`` over
+  the phase crossovers (never larger than the exact value);
 * **crossover** — the *highest* gain crossover (where the loop finally runs
   out of gain: its bandwidth);
 * **corners** — labels as in :class:`loopcraft.factored.FactoredForm` (zeros then
@@ -50,7 +60,8 @@ from typing import Any
 
 import numpy as np
 
-from .errors import ComponentValueError, DesignFileError, LoopcraftError
+from ._numbers import real_float, shown
+from .errors import AnalysisError, ComponentValueError, DesignFileError, LoopcraftError
 from .values import format_value, parse_value
 
 __all__ = [
@@ -147,10 +158,10 @@ def canonical_label(label: str) -> str | None:
 
 def _number(value: Any, key_path: str, what: str) -> float:
     if isinstance(value, bool) or not isinstance(value, Real):
-        raise DesignFileError(f"{what} must be a number (got {value!r})", key_path)
-    x = float(value)
+        raise DesignFileError(f"{what} must be a number (got {shown(value)})", key_path)
+    x = real_float(value)
     if not math.isfinite(x):
-        raise DesignFileError(f"{what} must be finite (got {value!r})", key_path)
+        raise DesignFileError(f"{what} must be finite (got {shown(value)})", key_path)
     return x
 
 
@@ -161,18 +172,18 @@ def _frequency(value: Any, key_path: str) -> float:
         try:
             return parse_value(text, name=key_path)
         except ComponentValueError as err:
-            raise DesignFileError(f"expected a frequency in Hz such as 20e3 or '20k' (got {value!r})",
+            raise DesignFileError(f"expected a frequency in Hz such as 20e3 or '20k' (got {shown(value)})",
                                   key_path) from err
     x = _number(value, key_path, "a frequency (Hz)")
     if x <= 0:
-        raise DesignFileError(f"a frequency must be > 0 Hz (got {value!r})", key_path)
+        raise DesignFileError(f"a frequency must be > 0 Hz (got {shown(value)})", key_path)
     return x
 
 
 def _range(value: Any, key_path: str, *, kind: str) -> tuple[float, float]:
     """``[min, max]``; kind "hz" (positive frequencies), "positive" or "real"."""
     if not isinstance(value, list | tuple) or len(value) != 2:
-        raise DesignFileError(f"expected a range [min, max] of two numbers (got {value!r})", key_path)
+        raise DesignFileError(f"expected a range [min, max] of two numbers (got {shown(value)})", key_path)
     if kind == "hz":
         lo, hi = (_frequency(v, f"{key_path}[{i}]") for i, v in enumerate(value))
     else:
@@ -180,9 +191,9 @@ def _range(value: Any, key_path: str, *, kind: str) -> tuple[float, float]:
         if kind == "positive":
             for i, x in enumerate((lo, hi)):
                 if x <= 0:
-                    raise DesignFileError(f"a Q bound must be > 0 (got {value[i]!r})", f"{key_path}[{i}]")
+                    raise DesignFileError(f"a Q bound must be > 0 (got {shown(value[i])})", f"{key_path}[{i}]")
     if lo > hi:
-        raise DesignFileError(f"range minimum {value[0]!r} is above its maximum {value[1]!r} "
+        raise DesignFileError(f"range minimum {shown(value[0])} is above its maximum {shown(value[1])} "
                               "(expected [min, max] with min <= max)", key_path)
     return (lo, hi)
 
@@ -213,10 +224,10 @@ def parse_spec(spec: Any, key_path: str = "spec") -> Spec:
     if isinstance(spec, Spec):
         return spec
     if not isinstance(spec, Mapping):
-        raise DesignFileError(f"expected an object of spec items (got {type(spec).__name__} {spec!r})", key_path)
+        raise DesignFileError(f"expected an object of spec items (got {type(spec).__name__} {shown(spec)})", key_path)
     for k in spec:
         if k not in _KEYS:
-            raise DesignFileError(f"unknown key {k!r} (allowed: {', '.join(_KEYS)})", f"{key_path}.{k}")
+            raise DesignFileError(f"unknown key {shown(k)} (allowed: {', '.join(_KEYS)})", f"{key_path}.{k}")
     kw: dict[str, Any] = {}
     for k in ("phase_margin_min_deg", "gain_margin_min_db"):
         if k in spec:
@@ -229,31 +240,32 @@ def parse_spec(spec: Any, key_path: str = "spec") -> Spec:
         raw = spec["corners"]
         where = f"{key_path}.corners"
         if not isinstance(raw, Mapping):
-            raise DesignFileError(f"expected an object of corner label: [min, max] (got {raw!r})", where)
+            raise DesignFileError(f"expected an object of corner label: [min, max] (got {shown(raw)})", where)
         corners: dict[str, tuple[float, float]] = {}
         first_key: dict[str, str] = {}
         for label, rng in raw.items():
             canon = canonical_label(label)
             if canon is None:
                 raise DesignFileError(
-                    f"corner label {label!r} is not of the factored form's kind (expected e.g. 'ωz1', 'ωp2', "
+                    f"corner label {shown(label)} is not of the factored form's kind (expected e.g. 'ωz1', 'ωp2', "
                     "'ω0p1', 'Qp1' or the ASCII 'wz1', 'w0p1')", f"{where}.{label}")
             if canon in corners:
-                raise DesignFileError(f"corner {canon} is given twice (as {first_key[canon]!r} and {label!r})",
-                                      f"{where}.{label}")
+                raise DesignFileError(
+                    f"corner {canon} is given twice (as {shown(first_key[canon])} and {shown(label)})",
+                    f"{where}.{label}")
             corners[canon] = _range(rng, f"{where}.{label}", kind="positive" if canon[0] == "Q" else "hz")
             first_key[canon] = label
         kw["corners"] = corners
     if "yield_min" in spec:
         y = _number(spec["yield_min"], f"{key_path}.yield_min", "yield_min")
         if not 0.0 < y <= 1.0:
-            raise DesignFileError(f"yield_min must be a fraction in (0, 1] (got {spec['yield_min']!r}; "
+            raise DesignFileError(f"yield_min must be a fraction in (0, 1] (got {shown(spec['yield_min'])}; "
                                   "write 0.99 for 99 %)", f"{key_path}.yield_min")
         kw["yield_min"] = y
     if "samples" in spec:
         n = spec["samples"]
         if isinstance(n, bool) or not isinstance(n, int) or not 1 <= n <= MAX_SAMPLES:
-            raise DesignFileError(f"samples must be an integer in 1 … {MAX_SAMPLES} (got {n!r})",
+            raise DesignFileError(f"samples must be an integer in 1 … {MAX_SAMPLES} (got {shown(n)})",
                                   f"{key_path}.samples")
         if "yield_min" not in spec:
             raise DesignFileError("samples only applies to the yield check; add yield_min or remove samples",
@@ -285,7 +297,8 @@ def sample_pass(spec: Spec, quantities: Mapping[str, Any], n: int) -> dict[str, 
         ``"gain_margin_db"`` (+inf where the phase never reaches -180°),
         ``"crossover_hz"`` (NaN where no crossover; these three are None without
         a plant), ``"dc_gain_db"``, and ``"corners"``: a mapping of canonical
-        label to Hz (ω labels) or Q.
+        label to Hz (ω labels) or Q; optionally ``"stable"``: per-sample bool,
+        True where the closed loop is stable (None or absent without a plant).
     n : int
         Number of samples.
 
@@ -294,15 +307,26 @@ def sample_pass(spec: Spec, quantities: Mapping[str, Any], n: int) -> dict[str, 
     dict of str to ndarray of bool
         Item name (as in :attr:`Spec.item_names`) to a per-sample pass mask. An
         item that cannot be evaluated (no plant, unknown corner) fails for every sample.
+        When ``"stable"`` is given, an implicit item ``"stable"`` comes first: an
+        unstable sample fails it, and so fails the spec whatever its margins; it
+        fails the margin items too (a margin of an unstable loop is not a margin).
     """
     none = np.zeros(n, dtype=bool)
     out: dict[str, np.ndarray] = {}
+    stable = quantities.get("stable")
+    if stable is not None:
+        stable = np.asarray(stable)
+        if stable.dtype != bool or stable.shape != (n,):
+            raise AnalysisError(f"quantities['stable'] must be a bool array of shape ({n},) "
+                                f"(got dtype {stable.dtype}, shape {stable.shape!r})")
+        out["stable"] = stable.copy()
     pm, gm, fc = (quantities.get(k) for k in ("phase_margin_deg", "gain_margin_db", "crossover_hz"))
+    ok = np.ones(n, dtype=bool) if stable is None else stable
     with np.errstate(invalid="ignore"):
         if spec.phase_margin_min_deg is not None:
-            out["phase_margin_min_deg"] = none if pm is None else np.asarray(pm) >= spec.phase_margin_min_deg
+            out["phase_margin_min_deg"] = none if pm is None else (np.asarray(pm) >= spec.phase_margin_min_deg) & ok
         if spec.gain_margin_min_db is not None:
-            out["gain_margin_min_db"] = none if gm is None else np.asarray(gm) >= spec.gain_margin_min_db
+            out["gain_margin_min_db"] = none if gm is None else (np.asarray(gm) >= spec.gain_margin_min_db) & ok
         if spec.crossover_hz is not None:
             lo, hi = spec.crossover_hz
             out["crossover_hz"] = none if fc is None else (np.asarray(fc) >= lo) & (np.asarray(fc) <= hi)
@@ -489,6 +513,7 @@ def check(design, *, spread: bool = True, seed: int = 1) -> SpecReport:
         items.append(SpecItem(name, required, None, False, why))
 
     margins = None
+    stability = None
     band = ""
     loop_why = analysis_error
     if analysis is not None:
@@ -498,6 +523,20 @@ def check(design, *, spread: bool = True, seed: int = 1) -> SpecReport:
             loop_why = "the design has no plant, so there is no loop gain (add a 'plant' section)"
         else:
             margins = analysis.loop.margins
+            stability = analysis.loop.stability
+
+    stable = True
+    if margins is not None and stability is not None:
+        # Stability is an implicit item of every spec of a design with a loop: no margin
+        # passes when the closed loop is not stable (pole count cross-checked by Nyquist).
+        stable = stability.stable
+        msg = stability.headline()
+        if stability.notes:
+            msg += " — " + "; ".join(stability.notes)
+        items.append(SpecItem("stable", "closed loop stable (implicit)", float(stability.closed_loop_rhp_poles),
+                              stable, msg))
+    not_stable = "" if stable or stability is None else (
+        f"the closed loop is not stable ({stability.verdict}), so no margin applies")
 
     if sp.phase_margin_min_deg is not None:
         req = f"≥ {sp.phase_margin_min_deg:g}°"
@@ -507,26 +546,43 @@ def check(design, *, spread: bool = True, seed: int = 1) -> SpecReport:
             unavailable("phase_margin_min_deg", req, f"the loop gain never crosses 0 dB in the analysed band {band}")
         else:
             worst = min(margins.crossovers, key=lambda c: c.phase_margin_deg)
-            ok = worst.phase_margin_deg >= sp.phase_margin_min_deg
+            ok = stable and worst.phase_margin_deg >= sp.phase_margin_min_deg
             more = f" (worst of {len(margins.crossovers)} crossovers)" if len(margins.crossovers) > 1 else ""
+            text = (f"phase margin {worst.phase_margin_deg:.3f}° at "
+                    f"{format_value(worst.f_hz, 'Hz', digits=4)}{more}")
             items.append(SpecItem("phase_margin_min_deg", req, worst.phase_margin_deg, ok,
-                                  f"phase margin {worst.phase_margin_deg:.3f}° at "
-                                  f"{format_value(worst.f_hz, 'Hz', digits=4)}{more}"))
+                                  f"{not_stable}; {text}" if not stable else text))
     if sp.gain_margin_min_db is not None:
         req = f"≥ {sp.gain_margin_min_db:g} dB"
         if margins is None:
             unavailable("gain_margin_min_db", req, f"cannot evaluate the gain margin: {loop_why}")
-        elif not margins.gain_margins:
-            items.append(SpecItem("gain_margin_min_db", req, math.inf, True,
-                                  f"the loop phase never reaches -180° in the analysed band {band}: "
-                                  "the gain margin is unbounded there"))
+        elif not stable:
+            items.append(SpecItem("gain_margin_min_db", req, None, False, not_stable))
         else:
-            worst_g = min(margins.gain_margins, key=lambda g: g.gain_margin_db)
-            ok = worst_g.gain_margin_db >= sp.gain_margin_min_db
-            more = f" (worst of {len(margins.gain_margins)} phase crossovers)" if len(margins.gain_margins) > 1 else ""
-            items.append(SpecItem("gain_margin_min_db", req, worst_g.gain_margin_db, ok,
-                                  f"gain margin {worst_g.gain_margin_db:.3f} dB at "
-                                  f"{format_value(worst_g.f_hz, 'Hz', digits=4)}{more}"))
+            # The governing gain margin: the smaller of the gain-increase and the gain-reduction
+            # margin (a conditionally stable loop has both), from the exact stable gain range.
+            gr = stability.gain_range
+            cands = [(gr.increase_margin_db, gr.increase_at_hz, "increase"),
+                     (gr.reduction_margin_db, gr.reduction_at_hz, "reduction")] if gr is not None else []
+            cands = [c for c in cands if c[0] is not None]
+            if not cands:
+                why = (f"the loop phase never reaches -180° in the analysed band {band}"
+                       if not margins.gain_margins else
+                       f"no phase crossover in the analysed band {band} limits the gain")
+                items.append(SpecItem("gain_margin_min_db", req, math.inf, True,
+                                      f"{why}: no rise or fall of the loop gain makes the closed loop unstable, "
+                                      "the gain margin is unbounded"))
+            else:
+                g_db, g_f, kind = min(cands, key=lambda c: c[0])
+                where = ("at DC" if g_f == 0.0 else "at high frequency" if g_f is not None and math.isinf(g_f)
+                         else f"at {format_value(g_f, 'Hz', digits=4)}" if g_f is not None and math.isfinite(g_f)
+                         else "")
+                both = ""
+                if len(cands) == 2:
+                    both = (f" (conditionally stable: gain may rise {gr.increase_margin_db:.3f} dB "
+                            f"and fall {gr.reduction_margin_db:.3f} dB)")
+                items.append(SpecItem("gain_margin_min_db", req, g_db, g_db >= sp.gain_margin_min_db,
+                                      f"gain-{kind} margin {g_db:.3f} dB {where}{both}".replace("  ", " ")))
     if sp.crossover_hz is not None:
         req = _hz_range(sp.crossover_hz)
         if margins is None:

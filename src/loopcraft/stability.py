@@ -194,14 +194,7 @@ class Stability:
     def headline(self) -> str:
         """One line, verdict first: ``"UNSTABLE: 2 closed-loop poles in the right half-plane"``."""
         if self.verdict == "stable":
-            text = "STABLE: every closed-loop pole in the left half-plane"
-            if self.gain_range is not None:
-                g = self.gain_range
-                up = "unlimited" if g.increase_margin_db is None else f"{g.increase_margin_db:.1f} dB"
-                text += f"; gain may rise {up}"
-                if g.reduction_margin_db is not None:
-                    text += f" and fall {g.reduction_margin_db:.1f} dB (conditionally stable)"
-            return text
+            return "STABLE: every closed-loop pole in the left half-plane"
         if self.verdict == "unstable":
             n = self.closed_loop_rhp_poles
             text = f"UNSTABLE: {n} closed-loop pole{'s' if n != 1 else ''} in the right half-plane"
@@ -211,6 +204,17 @@ class Stability:
         if self.verdict == "marginal":
             return "MARGINAL (not stable): closed-loop poles on the jω axis"
         return "STABILITY UNCERTAIN (treat as not stable): " + (self.notes[0] if self.notes else "methods disagree")
+
+    def gain_range_text(self) -> str:
+        """The stable gain range in words ("" unless stable): computes :attr:`gain_range`."""
+        g = self.gain_range
+        if g is None:
+            return ""
+        up = "without limit" if g.increase_margin_db is None else f"by {g.increase_margin_db:.1f} dB"
+        text = f"the loop gain may rise {up} before the closed loop goes unstable"
+        if g.reduction_margin_db is not None:
+            text += f", and fall by {g.reduction_margin_db:.1f} dB (conditionally stable)"
+        return text
 
     def to_dict(self) -> dict:
         """Plain data for JSON: poles as ``[[re, im], ...]`` in rad/s."""
@@ -421,7 +425,7 @@ def _nyquist(parts: _Parts, cl_roots: np.ndarray) -> tuple[int | None, str | Non
         ok = np.isfinite(one_plus_l) & (one_plus_l != 0)
         return _exact_phase_deg_u(d_fn, u) + np.degrees(np.angle(one_plus_l)), ok
 
-    pts = [np.linspace(lw_lo, lw_hi, int((lw_hi - lw_lo) * 16) + 2)]
+    pts = [np.linspace(lw_lo, lw_hi, int((lw_hi - lw_lo) * 10) + 2)]
     for r in cl_roots:  # extra resolution where a closed-loop pole sits near the axis
         if r.imag > 0 and abs(r) > 0:
             w0, a = abs(r.imag), max(abs(r.real), 1e-300)

@@ -17,6 +17,7 @@ from typing import TYPE_CHECKING, Any
 
 import sympy as sp
 
+from ._numbers import shown
 from .errors import DesignFileError, LoopcraftError, TopologyError
 from .network import Network, parse_network
 
@@ -164,7 +165,9 @@ _KEYS = {
 def _network(d: Mapping[str, Any], key: str, key_path: str) -> Network:
     text = d[key]
     if not isinstance(text, str):
-        raise DesignFileError(f"expected a network expression such as 'R1 + C1' (got {text!r})", f"{key_path}.{key}")
+        raise DesignFileError(
+            f"expected a network expression such as 'R1 + C1' (got {shown(text)})", f"{key_path}.{key}"
+        )
     try:
         return parse_network(text)
     except LoopcraftError as err:
@@ -173,7 +176,7 @@ def _network(d: Mapping[str, Any], key: str, key_path: str) -> Network:
 
 def _node(value: Any, path: str) -> str:
     if not isinstance(value, str) or not value:
-        raise DesignFileError(f"a node name must be non-empty text (got {value!r})", path)
+        raise DesignFileError(f"a node name must be non-empty text (got {shown(value)})", path)
     return value
 
 
@@ -199,9 +202,9 @@ def stage_from_dict(d: Mapping[str, Any], key_path: str = "stage") -> Stage:
     if not isinstance(d, Mapping):
         raise DesignFileError(f"expected an object (got {type(d).__name__})", key_path)
     kind = d.get("kind")
-    if kind not in _KEYS:
+    if not isinstance(kind, str) or kind not in _KEYS:
         raise DesignFileError(
-            f"unknown stage kind {kind!r} (expected one of {', '.join(STAGE_KINDS)})", f"{key_path}.kind"
+            f"unknown stage kind {shown(kind)} (expected one of {', '.join(STAGE_KINDS)})", f"{key_path}.kind"
         )
     allowed, required = _KEYS[kind]
     for k in d:
@@ -226,21 +229,19 @@ def stage_from_dict(d: Mapping[str, Any], key_path: str = "stage") -> Stage:
         for i, e in enumerate(elements):
             p = f"{key_path}.elements[{i}]"
             if not isinstance(e, list | tuple) or len(e) != 3:
-                raise DesignFileError(f"expected [name, node_a, node_b] (got {e!r})", p)
+                raise DesignFileError(f"expected [name, node_a, node_b] (got {shown(e)})", p)
             elems.append((_node(e[0], p + "[0]"), _node(e[1], p + "[1]"), _node(e[2], p + "[2]")))
         opamps = d.get("opamps", [])
         if not isinstance(opamps, list):
-            raise DesignFileError(f"expected a list of op-amps (got {opamps!r})", f"{key_path}.opamps")
+            raise DesignFileError(f"expected a list of op-amps (got {shown(opamps)})", f"{key_path}.opamps")
         ops = []
         for i, o in enumerate(opamps):
             p = f"{key_path}.opamps[{i}]"
             if not isinstance(o, Mapping):
-                raise DesignFileError(f"expected {{'plus', 'minus', 'out'}} (got {o!r})", p)
-            extra = set(o) - {"plus", "minus", "out"}
+                raise DesignFileError(f"expected {{'plus', 'minus', 'out'}} (got {shown(o)})", p)
+            extra = sorted(set(o) - {"plus", "minus", "out"}, key=str)
             if extra:
-                raise DesignFileError(
-                    f"unknown key {sorted(extra)[0]!r} (allowed: minus, out, plus)", f"{p}.{sorted(extra)[0]}"
-                )
+                raise DesignFileError(f"unknown key {shown(extra[0])} (allowed: minus, out, plus)", f"{p}.{extra[0]}")
             for k in ("plus", "minus", "out"):
                 if k not in o:
                     raise DesignFileError(f"missing key {k!r}", f"{p}.{k}")
@@ -251,7 +252,11 @@ def stage_from_dict(d: Mapping[str, Any], key_path: str = "stage") -> Stage:
             tuple(elems), tuple(ops), _node(d["input"], f"{key_path}.input"), _node(d["output"], f"{key_path}.output")
         )
         stage = CircuitStage(circuit)
-        stage.transfer_expr()  # reject undefined circuits now, not at first use
+        try:
+            stage.transfer_expr()  # reject undefined circuits now, not at first use
+        except RecursionError:
+            raise DesignFileError("the circuit is too large to solve (Python's recursion limit was reached)",
+                                  key_path) from None
         return stage
     except DesignFileError:
         raise

@@ -1,4 +1,4 @@
-"""Tolerance spread: the ``tolerances`` section, Monte Carlo and worst-case corner search.
+"""Tolerance spread: the ``tolerances`` section, Monte Carlo, closed-loop stability and worst case.
 
 The design-file section::
 
@@ -61,13 +61,63 @@ with Q above about ``0.68/Δ``, Δ the grid step in decades: Q ≈ 40 on the
 default 500 points over eight decades) may be refined to the wrong point; use
 a denser ``f_hz`` there.
 
-Worst case (:func:`worst_case`): every corner of the tolerance box (each
-parameter at ±t; for the normal distribution ±t = ±3σ) when at most 12
-parameters are toleranced, else a sensitivity-guided vertex per quantity.
-Vertices give the exact extremes of quantities that are monotonic in each
-parameter over the box (e.g. every corner formula that is a product of
-powers of the parts); a quantity with an interior extreme (Q or a margin near
-its optimum) can exceed them.
+Closed-loop stability per sample (with a plant): the loop is L = N/D with
+N = k_fb·(∓1)·N_P·N_H and D = D_P·D_H (the stage as built, sign convention of
+:mod:`loopcraft.loop`); the closed loop is stable iff every root of D + N —
+after cancelling a common factor s^k of N and D — has a negative real part,
+roots on the imaginary axis (the origin included) counting as not stable.
+Each sample's roots are refined from the nominal design's by Bairstow's method
+(quadratic factors, so a complex pair may split into two real roots) and
+Newton's, on the frequency-scaled polynomial, in real arithmetic; an
+inclusion disc around each root (radius d·|p/p'| plus the evaluation's
+rounding bound) must be disjoint from the others, which proves that every
+root has been found once. Samples where that fails take the batched
+companion-matrix eigenvalues instead (Newton-polished). A root counts as not
+stable when its disc reaches Re >= -1e-9·|root| (the safe side of the axis).
+The roots are those of the computed coefficients of D + N: a loop whose
+closed-loop poles sit within about 1e-9·|pole| of the axis, or whose
+coefficients lose many digits to cancellation in D + N, is reported unstable
+rather than stable. An unstable sample fails every spec (the implicit item
+``"stable"`` of :func:`loopcraft.spec.sample_pass`).
+
+Worst case (:func:`worst_case`), in two stages:
+
+1. **Vertices and nominal.** Every corner of the tolerance box (each parameter
+   at ±t; for the normal distribution ±t = ±3σ) when at most 12 parameters
+   are toleranced, else a sensitivity-guided vertex pair per quantity; the
+   nominal point is always a candidate, so a reported minimum is never above
+   the nominal value nor a maximum below it. Vertices give the exact extremes
+   of quantities that are monotonic in each parameter over the box (e.g. every
+   corner formula that is a product of powers of the parts).
+2. **Interior search** (``search=True``, the default). 128 seeded uniform
+   points in the box are evaluated; then, per quantity and direction (min and
+   max), a bounded compass (pattern) search in the normalized box
+   x = x0·(1 + t·z), z in [-1, 1]^n, starts from the best vertex, the best
+   random point, and the nominal point when no vertex beats it. Each round
+   polls z ± h·e_k, the last move repeated and a step along the box-projected
+   descent direction estimated from the polls; h doubles after a move and
+   halves after a failed round, down to 1e-3 (at most 60 rounds). All polls
+   of a round are one batched evaluation; corners and DC gain are searched
+   without the frequency grid. Every point evaluated is a candidate.
+
+Each :class:`Extreme` says where its value lies: ``"corner"`` (every
+parameter at an end), ``"face"`` (some at an end) or ``"interior"`` (none;
+the nominal point is interior), with the normalized position and the
+values. With a plant, a point whose closed loop is not stable counts as
+phase and gain margin -inf, so the minimum margin of a box that holds an
+unstable point is -inf, flagged ``min_stable=False``.
+
+**Limits.** The search is local: an interior extreme in a separate basin,
+not reached from any of the starts, can still be missed, and so can a
+narrow one between random points. A move must gain at least 0.1 % of the
+quantity's spread over the box per unit of normalized step (so that the
+search does not creep along flat ridges): a reported extreme can fall short
+of a nearly flat local extreme by about that much (a few tenths of a percent
+of the spread). Quantities with jumps (the highest crossover when another
+crossing appears, a margin when the worst crossing switches) are searched
+like any other, without guarantees. The magnitude envelopes of
+:class:`WorstCase` come from the vertices only. The frequency-grid limit of
+the Monte Carlo applies to every evaluated point.
 """
 
 from __future__ import annotations
@@ -164,21 +214,24 @@ class ToleranceSet:
 
 def _fraction(value: Any, where: str) -> float:
     """A tolerance as a fraction in 0 … 0.5 from "1%" text or a number."""
+    from ._numbers import MAX_NUMBER_TEXT, real_float, shown
+
     if isinstance(value, bool) or not isinstance(value, Real | str):
-        raise DesignFileError(f"expected percent text such as '1%' or a fraction such as 0.01 (got {value!r})", where)
+        raise DesignFileError(f"expected percent text such as '1%' or a fraction such as 0.01 (got {shown(value)})",
+                              where)
     if isinstance(value, str):
-        m = _PERCENT_RE.fullmatch(value.strip())
+        m = _PERCENT_RE.fullmatch(value.strip()) if len(value) <= MAX_NUMBER_TEXT else None
         if m is None:
-            raise DesignFileError(f"cannot read {value!r} as a tolerance (expected percent text such as '1%', "
+            raise DesignFileError(f"cannot read {shown(value)} as a tolerance (expected percent text such as '1%', "
                                   "'0.1 %' or a fraction such as 0.01)", where)
         x = float(m["num"]) / 100.0
     else:
-        x = float(value)
+        x = real_float(value)
     if not (math.isfinite(x) and 0.0 <= x <= MAX_TOLERANCE):
         hint = ""
-        if isinstance(value, Real) and 1.0 <= float(value) <= 50.0:
-            hint = f"; a number is a fraction, so write {float(value) / 100:g} or '{value:g}%' for {value:g} %"
-        raise DesignFileError(f"tolerance {value!r} is outside 0 … 50 %{hint}", where)
+        if isinstance(value, Real) and 1.0 <= x <= 50.0:
+            hint = f"; a number is a fraction, so write {x / 100:g} or '{x:g}%' for {x:g} %"
+        raise DesignFileError(f"tolerance {shown(value)} is outside 0 … 50 %{hint}", where)
     return x
 
 
@@ -206,11 +259,13 @@ def parse_tolerances(tol: Any, names: tuple[str, ...] | list[str], key_path: str
         unknown distribution, or two equally specific patterns that disagree;
         the key path names the key (``"tolerances.C*"``).
     """
+    from ._numbers import shown
+
     if isinstance(tol, ToleranceSet):
         return tol
     if not isinstance(tol, Mapping):
         raise DesignFileError(f"expected an object of designator or pattern: tolerance (got {type(tol).__name__} "
-                              f"{tol!r})", key_path)
+                              f"{shown(tol)})", key_path)
     names = tuple(names)
     dist = "uniform"
     gbw = 0.0
@@ -219,23 +274,23 @@ def parse_tolerances(tol: Any, names: tuple[str, ...] | list[str], key_path: str
         where = f"{key_path}.{key}"
         if key == "distribution":
             if value not in DISTRIBUTIONS:
-                raise DesignFileError(f"unknown distribution {value!r} (expected one of {', '.join(DISTRIBUTIONS)}; "
-                                      "for 'normal' the tolerance is 3σ)", where)
+                raise DesignFileError(f"unknown distribution {shown(value)} (expected one of "
+                                      f"{', '.join(DISTRIBUTIONS)}; for 'normal' the tolerance is 3σ)", where)
             dist = value
             continue
         if key == "gbw":
             gbw = _fraction(value, where)
             continue
         if not isinstance(key, str) or _KEY_RE.fullmatch(key) is None:
-            raise DesignFileError(f"unknown key {key!r} (expected a designator or a glob pattern over designators "
+            raise DesignFileError(f"unknown key {shown(key)} (expected a designator or a glob pattern over designators "
                                   "such as 'R*' or 'C[12]', or one of 'gbw', 'distribution')", where)
         frac = _fraction(value, where)
         exact = not (_GLOB & set(key))
         if exact:
             if key not in names:
-                raise DesignFileError(f"no element {key!r} in the stage (elements: {', '.join(names)})", where)
+                raise DesignFileError(f"no element {shown(key)} in the stage (elements: {', '.join(names)})", where)
         elif not any(fnmatch.fnmatchcase(n, key) for n in names):
-            raise DesignFileError(f"pattern {key!r} matches no element (elements: {', '.join(names)})", where)
+            raise DesignFileError(f"pattern {shown(key)} matches no element (elements: {', '.join(names)})", where)
         rules.append((key, frac, exact))
     by: dict[str, float] = {}
     src: dict[str, str | None] = {}
@@ -377,7 +432,15 @@ class Spread:
     spec_passed : ndarray of bool or None
         Per-sample pass mask against the spec.
     item_yield : mapping of str to float or None
-        Pass fraction of each spec item.
+        Pass fraction of each spec item (with a plant, the implicit item ``"stable"`` too).
+    n_rhp : ndarray of int or None
+        Per sample, the closed-loop roots (of D + N for L = N/D, a common s^k cancelled) that are
+        not strictly stable: Re >= -1e-9·|root|, origin and axis roots included (None without a plant).
+    stable : ndarray of bool or None
+        ``n_rhp == 0``: the closed loop of that sample is stable. An unstable sample fails any spec,
+        whatever its margins.
+    nominal_stable : bool or None
+        The same at nominal values.
     """
 
     f_hz: np.ndarray
@@ -401,11 +464,20 @@ class Spread:
     yield_fraction: float | None = None
     spec_passed: np.ndarray | None = None
     item_yield: Mapping[str, float] | None = None
+    n_rhp: np.ndarray | None = None
+    stable: np.ndarray | None = None
+    nominal_stable: bool | None = None
 
     def __repr__(self) -> str:
         y = "" if self.yield_fraction is None else f", yield={self.yield_fraction:.4f}"
+        u = "" if self.stable is None else f", unstable={self.unstable_fraction:.4f}"
         return (f"Spread(samples={self.samples}, seed={self.seed}, distribution={self.distribution!r}, "
-                f"frequencies={self.f_hz.size}, quantities={list(self.quantities)}{y})")
+                f"frequencies={self.f_hz.size}, quantities={list(self.quantities)}{u}{y})")
+
+    @property
+    def unstable_fraction(self) -> float | None:
+        """Fraction of samples whose closed loop is not stable (None without a plant)."""
+        return None if self.stable is None else float(1.0 - self.stable.mean())
 
     @property
     def quantities(self) -> dict[str, np.ndarray]:
@@ -433,6 +505,9 @@ class Spread:
             "quantities": {k: self.summary(k) for k in self.quantities},
             "yield": _json(self.yield_fraction) if self.yield_fraction is not None else None,
             "item_yield": dict(self.item_yield) if self.item_yield is not None else None,
+            "unstable_fraction": self.unstable_fraction,
+            "n_unstable": None if self.stable is None else int((~self.stable).sum()),
+            "nominal_stable": self.nominal_stable,
         }
         if envelopes:
             out["f_hz"] = self.f_hz.tolist()
@@ -459,7 +534,7 @@ class Batch:
     loop : ndarray of complex or None
         L(j·2π·f) (None without a plant).
     loop_mag_db, loop_phase_deg : ndarray or None
-    corners, dc_gain_db, crossover_hz, phase_margin_deg, gain_margin_db, n_crossovers
+    corners, dc_gain_db, crossover_hz, phase_margin_deg, gain_margin_db, n_crossovers, n_rhp, stable
         As in :class:`Spread`.
     """
 
@@ -477,9 +552,18 @@ class Batch:
     phase_margin_deg: np.ndarray | None
     gain_margin_db: np.ndarray | None
     n_crossovers: np.ndarray | None
+    n_rhp: np.ndarray | None = None
+    stable: np.ndarray | None = None
+
+    @property
+    def unstable_fraction(self) -> float | None:
+        """Fraction of samples whose closed loop is not stable (None without a plant)."""
+        return None if self.stable is None else float(1.0 - self.stable.mean())
 
     def __repr__(self) -> str:
-        return f"Batch(samples={self.stage.shape[0]}, frequencies={self.f_hz.size}, corners={list(self.corners)})"
+        u = "" if self.stable is None else f", unstable={self.unstable_fraction:.4f}"
+        return (f"Batch(samples={self.stage.shape[0]}, frequencies={self.f_hz.size}, "
+                f"corners={list(self.corners)}{u})")
 
 
 @dataclass(frozen=True)
@@ -495,13 +579,22 @@ class Extreme:
     nominal : float
         Value at nominal values.
     min, max : float
-        Smallest and largest value found (NaN when undefined at every vertex tried).
+        Smallest and largest value found, the nominal value included, so ``min <= nominal <= max``
+        whenever the nominal is defined (NaN when undefined at every point tried). A phase or
+        gain margin is -inf at a point whose closed loop is not stable.
     min_values, max_values : mapping of str to float
-        The toleranced parameters at that vertex (parts in SI base units, ``"gbw_hz"`` in Hz).
+        The toleranced parameters at that point (parts in SI base units, ``"gbw_hz"`` in Hz).
     min_signs, max_signs : mapping of str to int
-        The vertex as signs: -1 (low end), +1 (high end), 0 (nominal), per parameter.
+        Per parameter -1 (at its low end), +1 (at its high end) or 0 (inside its range).
     n_undefined : int
         Vertices where the quantity is undefined (e.g. no crossover).
+    min_location, max_location : {"corner", "face", "interior"}
+        Where the point lies: a vertex of the box (every parameter at an end), on a face (some
+        at an end), or inside (none at an end; the nominal point is inside).
+    min_position, max_position : mapping of str to float
+        The point in normalized units: x = x0·(1 + t·position), position in [-1, 1].
+    min_stable, max_stable : bool or None
+        Whether the closed loop is stable at that point (None without a plant).
     """
 
     quantity: str
@@ -514,13 +607,22 @@ class Extreme:
     min_signs: Mapping[str, int]
     max_signs: Mapping[str, int]
     n_undefined: int = 0
+    min_location: str = "corner"
+    max_location: str = "corner"
+    min_position: Mapping[str, float] = field(default_factory=dict)
+    max_position: Mapping[str, float] = field(default_factory=dict)
+    min_stable: bool | None = None
+    max_stable: bool | None = None
 
     def to_dict(self) -> dict[str, Any]:
-        """JSON-ready form (non-finite numbers become None)."""
+        """JSON-ready form (non-finite numbers become None; ``min_stable`` False tells an unstable -inf)."""
         return {"quantity": self.quantity, "unit": self.unit, "nominal": _json(self.nominal),
                 "min": _json(self.min), "max": _json(self.max),
+                "min_location": self.min_location, "max_location": self.max_location,
                 "min_values": dict(self.min_values), "max_values": dict(self.max_values),
+                "min_position": dict(self.min_position), "max_position": dict(self.max_position),
                 "min_signs": dict(self.min_signs), "max_signs": dict(self.max_signs),
+                "min_stable": self.min_stable, "max_stable": self.max_stable,
                 "n_undefined": self.n_undefined}
 
 
@@ -533,7 +635,7 @@ class WorstCase:
     f_hz : ndarray
         Frequency grid, Hz.
     method : {"corners", "sensitivity"}
-        All 2^n corners, or one sensitivity-guided vertex pair per quantity.
+        The vertices tried: all 2^n corners, or one sensitivity-guided vertex pair per quantity.
     parameters : tuple of str
         The toleranced parameters (designators, and ``"gbw"``).
     tolerances : mapping of str to float
@@ -544,9 +646,20 @@ class WorstCase:
         Per quantity (corners by label, ``dc_gain_db``, and with a plant
         ``crossover_hz``, ``phase_margin_deg``, ``gain_margin_db``).
     stage_mag_db_min, stage_mag_db_max : ndarray or None
-        Per-frequency extremes of the stage magnitude over all corners (method "corners" only).
+        Per-frequency extremes of the stage magnitude over all corners (method "corners" only;
+        not searched inside the box).
     loop_mag_db_min, loop_mag_db_max : ndarray or None
         The same for the loop (method "corners" with a plant).
+    search : bool
+        Whether the inside of the box was searched.
+    n_searched : int
+        Points evaluated by the search (random starts and polls), besides the vertices.
+    nominal_stable : bool or None
+        Whether the closed loop is stable at nominal values (None without a plant).
+    n_unstable : int or None
+        Vertices whose closed loop is not stable (None without a plant).
+    unstable_found : bool or None
+        Whether any point evaluated (nominal, vertex or search) had an unstable closed loop.
     """
 
     f_hz: np.ndarray
@@ -559,15 +672,32 @@ class WorstCase:
     stage_mag_db_max: np.ndarray | None = None
     loop_mag_db_min: np.ndarray | None = None
     loop_mag_db_max: np.ndarray | None = None
+    search: bool = False
+    n_searched: int = 0
+    nominal_stable: bool | None = None
+    n_unstable: int | None = None
+    unstable_found: bool | None = None
+
+    @property
+    def unstable_fraction(self) -> float | None:
+        """Fraction of the vertices whose closed loop is not stable (None without a plant)."""
+        return None if self.n_unstable is None else self.n_unstable / self.n_evaluated
 
     def __repr__(self) -> str:
-        rows = ", ".join(f"{k}: {e.min:.6g} … {e.max:.6g}" for k, e in self.extremes.items())
-        return f"WorstCase(method={self.method!r}, vertices={self.n_evaluated}, {rows})"
+        rows = ", ".join(f"{k}: {e.min:.6g} ({e.min_location}) … {e.max:.6g} ({e.max_location})"
+                         for k, e in self.extremes.items())
+        st = "" if self.n_unstable is None else (f", unstable vertices={self.n_unstable}, "
+                                                 f"unstable found={self.unstable_found}")
+        return (f"WorstCase(method={self.method!r}, vertices={self.n_evaluated}, searched={self.n_searched}"
+                f"{st}, {rows})")
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready summary."""
         return {"method": self.method, "parameters": list(self.parameters), "tolerances": dict(self.tolerances),
-                "n_evaluated": self.n_evaluated, "extremes": {k: e.to_dict() for k, e in self.extremes.items()}}
+                "n_evaluated": self.n_evaluated, "search": self.search, "n_searched": self.n_searched,
+                "nominal_stable": self.nominal_stable, "n_unstable": self.n_unstable,
+                "unstable_fraction": self.unstable_fraction, "unstable_found": self.unstable_found,
+                "extremes": {k: e.to_dict() for k, e in self.extremes.items()}}
 
 
 # =========================================================================== compiled pieces
@@ -724,6 +854,235 @@ def _batched_roots(a: np.ndarray) -> np.ndarray:
     return x * sigma[:, None]
 
 
+#: A closed-loop root with Re >= -STABILITY_REL·|root| counts as not stable (the safe side of the axis).
+STABILITY_REL = 1e-9
+_FACTOR_ITER = 6
+_TIGHT = 1e-6
+_STAB_CHUNK = 8192
+
+
+def _poly_at(b: np.ndarray, x: np.ndarray):
+    """p(x), p'(x) and rounding bounds for ascending b (d+1, M) at x (M, d).
+
+    The bounds are Horner's running error bound ``γ·Σ|b_k||x|^k`` (Higham 2002, ch. 5) with a
+    generous γ for complex arithmetic, and the same for the derivative.
+    """
+    d = b.shape[0] - 1
+    bt = np.ascontiguousarray(b.T)  # (M, d+1)
+    ab = np.abs(bt)
+    ax = np.abs(x)
+    acc = np.empty(x.shape, dtype=complex)
+    acc[...] = bt[:, d, None]
+    dacc = np.zeros_like(acc)
+    mu = np.empty(x.shape)
+    mu[...] = ab[:, d, None]
+    dmu = np.zeros_like(mu)
+    for k in range(d - 1, -1, -1):
+        dacc *= x
+        dacc += acc
+        acc *= x
+        acc += bt[:, k, None]
+        dmu *= ax
+        dmu += mu
+        mu *= ax
+        mu += ab[:, k, None]
+    gamma = 8.0 * (d + 1) * np.finfo(float).eps
+    mu *= gamma
+    dmu *= gamma
+    return acc, dacc, mu, dmu
+
+
+def _inclusion_radii(b: np.ndarray, x: np.ndarray) -> np.ndarray:
+    """Per approximate root x_i a radius r_i such that a root of b lies within r_i of x_i.
+
+    p'/p(x) = Σ 1/(x - r_k), so some root lies within d·|p(x)/p'(x)| of x (a classical
+    inclusion, e.g. Henrici, "Applied and Computational Complex Analysis", vol. 1, 1974; from
+    memory); rounding errors of the evaluation are added to |p| and taken off |p'|. Infinite
+    where |p'| cannot be bounded away from zero.
+    """
+    d = b.shape[0] - 1
+    p, dp, e, de = _poly_at(b, x)
+    lo = np.abs(dp) - de
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        r = np.where(lo > 0, d * (np.abs(p) + e) / np.where(lo > 0, lo, 1.0), np.inf)
+    return np.where(np.isfinite(r), r, np.inf)
+
+
+def _factor_start(roots: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Nominal roots (rad/s) as quadratic factors s² + U·s + V and real roots r.
+
+    Complex pairs become quadratics; so do neighbouring real roots less than a factor 2 apart
+    (a pair that may turn complex in a sample). Returns (U, V, r).
+    """
+    cplx = roots[roots.imag > 0]
+    real = np.sort(roots[roots.imag == 0].real)
+    us, vs = list(-2.0 * cplx.real), list(np.abs(cplx) ** 2)
+    rest = []
+    k = 0
+    while k < real.size:
+        if k + 1 < real.size and abs(real[k + 1] - real[k]) < 0.5 * max(abs(real[k]), abs(real[k + 1])):
+            us.append(-(real[k] + real[k + 1]))
+            vs.append(real[k] * real[k + 1])
+            k += 2
+        else:
+            rest.append(real[k])
+            k += 1
+    return np.array(us), np.array(vs), np.array(rest)
+
+
+def _bairstow(a: list[np.ndarray], u: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Bairstow iterations for quadratic factors x² + u·x + v of Σ a[k]·x^k (a[k] of shape (M, 1))."""
+    d = len(a) - 1
+    for _ in range(_FACTOR_ITER):
+        bn1 = bn2 = cn1 = cn2 = 0.0  # B[i+1], B[i+2], C[i+1], C[i+2]
+        b1 = c1 = 0.0
+        for i in range(d - 2, -1, -1):
+            bi = a[i + 2] - u * bn1 - v * bn2
+            ci = bn2 - u * cn1 - v * cn2
+            if i == 1:
+                b1, c1 = bi, ci
+            bn2, bn1, cn2, cn1 = bn1, bi, cn1, ci
+        b0, c0 = bn1, cn1
+        cc = a[1] - u * b0 - v * b1
+        dd = a[0] - v * b0
+        g = b1 - u * c0 - v * c1
+        h = b0 - v * c0
+        det = v * g * g + h * (h - u * g)
+        du = (g * dd - h * cc) / det
+        dv = ((g * u - h) * dd - g * v * cc) / det
+        u = u - du
+        v = v - dv
+    return u, v
+
+
+def _refine_factors(b: np.ndarray, u: np.ndarray, v: np.ndarray, r: np.ndarray) -> np.ndarray:
+    """Roots (M, d) of ascending real b (d+1, M), refined from starting factors in real arithmetic.
+
+    Quadratics x² + u·x + v (u, v of shape (M, Fq)) by Bairstow's method, real roots r (M, Fr)
+    by Newton's. Each factor is refined against the whole polynomial (no deflation), so two may settle on the
+    same factor: the inclusion discs of the result tell (see :func:`_certified`). A quadratic
+    whose roots exceed 1 in magnitude is refined on the reversed polynomial (reciprocal roots),
+    where the synthetic division does not grow. Bairstow's iteration as in e.g. Press et al.,
+    "Numerical Recipes", 3rd ed., 2007, §9.5 (from memory).
+    """
+    d = b.shape[0] - 1
+    a = [b[k][:, None] for k in range(d + 1)]
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        if u.shape[1]:
+            big = np.abs(v[0]) > 1.0  # the same split for every sample: the start is shared
+            uu, vv = u.copy(), v.copy()
+            if (~big).any():
+                uu[:, ~big], vv[:, ~big] = _bairstow(a, u[:, ~big], v[:, ~big])
+            if big.any():
+                ur, vr = _bairstow(a[::-1], u[:, big] / v[:, big], 1.0 / v[:, big])
+                uu[:, big], vv[:, big] = ur / vr, 1.0 / vr
+            u, v = uu, vv
+        for _ in range(_FACTOR_ITER if r.shape[1] else 0):
+            p = np.broadcast_to(a[d], r.shape).copy()
+            dp = np.zeros_like(p)
+            for k in range(d - 1, -1, -1):
+                dp = dp * r + p
+                p = p * r + a[k]
+            r = r - p / dp
+        disc = u * u - 4.0 * v
+        sq = np.sqrt(np.abs(disc))
+        q = -0.5 * (u + np.copysign(sq, u))
+        re1 = np.where(disc >= 0, q, -0.5 * u)
+        re2 = np.where(disc >= 0, v / q, -0.5 * u)
+        im = np.where(disc >= 0, 0.0, 0.5 * sq)
+    return np.concatenate([re1 + 1j * im, re2 - 1j * im, r.astype(complex)], axis=1)
+
+
+def _certified(x: np.ndarray, r: np.ndarray) -> np.ndarray:
+    """Samples whose d inclusion discs are finite and pairwise disjoint (so each holds exactly one root)."""
+    d = x.shape[1]
+    ok = np.isfinite(r).all(axis=1) & np.isfinite(x).all(axis=1)
+    xr = np.ascontiguousarray(x.real.T)
+    xi = np.ascontiguousarray(x.imag.T)
+    rt = np.ascontiguousarray(r.T)
+    with np.errstate(invalid="ignore", over="ignore"):
+        for i in range(d - 1):
+            dist2 = np.square(xr[i + 1:] - xr[i])
+            dist2 += np.square(xi[i + 1:] - xi[i])
+            ok &= (dist2 > np.square(rt[i + 1:] + rt[i])).all(axis=0)
+    return ok
+
+
+def _not_stable(x: np.ndarray, r: np.ndarray) -> np.ndarray:
+    """Per sample, roots whose inclusion disc reaches Re >= -STABILITY_REL·|root| (counted as not stable)."""
+    with np.errstate(invalid="ignore"):
+        bad = (x.real + r >= -STABILITY_REL * (np.abs(x) + r)) | ~np.isfinite(r) | ~np.isfinite(x)
+    return bad.sum(axis=1)
+
+
+def _rhp_scalar(c: np.ndarray) -> int:
+    """Not-stable root count of one ascending polynomial (numpy.roots; exact origin roots counted)."""
+    if not np.all(np.isfinite(c)):
+        return max(c.size - 1, 1)
+    nz = np.flatnonzero(c)
+    if nz.size == 0:
+        return 1  # 1 + L vanishes identically: no closed loop to speak of
+    k0 = int(nz[0])
+    core = c[k0:int(nz[-1]) + 1]
+    r = np.roots(core[::-1]) if core.size > 1 else np.zeros(0, dtype=complex)
+    return k0 + int(np.sum(r.real >= -STABILITY_REL * np.abs(r)))
+
+
+def _closed_loop_count(c: np.ndarray, start: np.ndarray | None = None) -> np.ndarray:
+    """Closed-loop roots not strictly in the left half plane, per sample, for ascending c (m+1, N).
+
+    Exact zeros in the lowest rows (in every sample) are roots at the origin and count. The rest
+    is normalized and frequency-scaled (s = σ·x, σ = |a_d|^(-1/d)); its roots are refined from
+    ``start`` (roots in rad/s, e.g. the nominal design's) by :func:`_refine_factors` when given.
+    Samples whose inclusion discs are not finite, pairwise disjoint and within 1e-6·|root| —
+    and every sample without a start — take the batched companion eigenvalues
+    (:func:`_batched_roots`, Newton-polished). A root counts as not stable when its inclusion
+    disc reaches ``Re >= -STABILITY_REL·|root|``. Samples with a zero constant or leading
+    coefficient, or non-finite ones, go through numpy.roots one by one.
+    """
+    n = c.shape[1]
+    k0 = 0
+    while k0 < c.shape[0] - 1 and not np.any(c[k0]):
+        k0 += 1
+    c = _trim(c[k0:])
+    count = np.full(n, k0, dtype=np.int64)
+    d = c.shape[0] - 1
+    good = np.isfinite(c).all(axis=0) & (c[0] != 0) & (c[d] != 0)
+    if d == 0:
+        count[~good] += 1
+        return count
+    for i in np.flatnonzero(~good):
+        count[i] += _rhp_scalar(c[:, i])
+    if start is not None:
+        start = _factor_start(start) if start.size == d and np.all(np.isfinite(start)) else None
+    for lo in range(0, n, _STAB_CHUNK):
+        idx = lo + np.flatnonzero(good[lo:lo + _STAB_CHUNK])
+        if idx.size == 0:
+            continue
+        a = c[:, idx] / c[0, idx]
+        sigma = np.abs(a[d]) ** (-1.0 / d)
+        b = a * sigma[None, :] ** np.arange(d + 1)[:, None]
+        if start is not None:
+            su, sv, sr = start
+            x = _refine_factors(b, su[None, :] / sigma[:, None], sv[None, :] / sigma[:, None] ** 2,
+                                sr[None, :] / sigma[:, None])
+            r = _inclusion_radii(b, x)
+            # Certified, and every root pinned to 1e-6 relative (so its side of the axis is clear).
+            with np.errstate(invalid="ignore"):
+                tight = (r <= _TIGHT * np.abs(x)).all(axis=1)
+            redo = np.flatnonzero(~(_certified(x, r) & tight))
+        else:
+            x = np.empty((idx.size, d), dtype=complex)
+            r = np.empty((idx.size, d))
+            redo = np.arange(idx.size)
+        if redo.size:
+            xe = _batched_roots(a[:, redo]) / sigma[redo, None]
+            x[redo] = xe
+            r[redo] = _inclusion_radii(b[:, redo], xe)
+        count[idx] += _not_stable(x, r)
+    return count
+
+
 def _illinois(fun: Callable[[np.ndarray, np.ndarray], np.ndarray], ua: np.ndarray, ub: np.ndarray,
               fa: np.ndarray, fb: np.ndarray, tol: float = 1e-13, max_iter: int = 80) -> np.ndarray:
     """Vectorized regula falsi (Illinois variant) for roots bracketed by [ua, ub] with fa·fb <= 0.
@@ -772,7 +1131,7 @@ class _Engine:
         self.opamp = op if op is not None and not op.is_ideal else None
         self.plant_fn = design.plant.factored() if design.plant is not None else None
         self.kfb = float(design.feedback_gain)
-        self.loop_k = self.kfb * loop_sign(self.kind)
+        self.loop_k = self.kfb * loop_sign(self.kind, getattr(design, "stage_sign", None))
         if self.kind == "circuit" and self.opamp is not None:
             self.circuit = _circuit_grid(design.stage.circuit, self.names)
         self.nominal_values = np.array([design.values[n] for n in self.names], dtype=float)
@@ -814,6 +1173,11 @@ class _Engine:
             self._full["thr"] = np.ascontiguousarray(np.broadcast_to(thr[:, None], (nf, c)))
             cp = self.stage_ph_nom_deg / 360.0 + self.loop_ph_offset / 360.0 + 0.5
             self._full["cp"] = np.ascontiguousarray(np.broadcast_to(cp[:, None], (nf, c)))
+            pn, pd = self.plant_fn.tf()
+            self.plant_num = np.ascontiguousarray(pn[::-1])  # ascending, rad/s
+            self.plant_den = np.ascontiguousarray(pd[::-1])
+            #: Closed-loop roots at nominal values (rad/s): where every sample's root search starts.
+            self.cl_start = self._closed_loop_roots(num, den)
         self._local = threading.local()
         self._structure = self._corner_structure()
 
@@ -897,6 +1261,34 @@ class _Engine:
                 total = _padd(total, (a0 ** ka) * _pmul(coeffs, da_pow[m - ka]))
             polys.append(_trim(total))
         return polys[0], polys[1]
+
+    # ---- closed-loop stability ---------------------------------------------------------------
+    def closed_loop_char(self, num: np.ndarray, den: np.ndarray) -> np.ndarray:
+        """Ascending coefficients (m+1, N) of D + N, the loop L = N/D (rad/s), a common s^k cancelled."""
+        n_l = self.loop_k * _pmul(self.plant_num[:, None], num)
+        d_l = _pmul(self.plant_den[:, None], den)
+        k = 0
+        while k < min(n_l.shape[0], d_l.shape[0]) - 1 and not np.any(n_l[k]) and not np.any(d_l[k]):
+            k += 1
+        return _padd(d_l[k:], n_l[k:])
+
+    def _closed_loop_roots(self, num: np.ndarray, den: np.ndarray) -> np.ndarray | None:
+        """Closed-loop roots (rad/s) of one sample, origin roots dropped: the samples' refinement starts there."""
+        c = self.closed_loop_char(num, den)[:, 0]
+        nz = np.flatnonzero(c)
+        if nz.size < 2 or not np.all(np.isfinite(c)):
+            return None
+        core = c[int(nz[0]):int(nz[-1]) + 1]
+        r = _batched_roots((core / core[0])[:, None])[0]
+        if r.size > 1:
+            gap = np.abs(r[:, None] - r[None, :]) + np.diag(np.full(r.size, np.inf))
+            if np.min(gap) <= 1e-6 * np.max(np.abs(r)):
+                return None  # (near-)repeated roots: no distinct starting points
+        return r
+
+    def closed_loop_rhp(self, num: np.ndarray, den: np.ndarray) -> np.ndarray:
+        """Per sample, closed-loop roots with Re >= -1e-9·|root| (see :func:`_closed_loop_count`)."""
+        return _closed_loop_count(self.closed_loop_char(num, den), self.cl_start)
 
     # ---- corners ------------------------------------------------------------------------
     def _factor_corners(self, a: np.ndarray, deg: int, plan) -> list[tuple[np.ndarray, np.ndarray | None]]:
@@ -1145,6 +1537,7 @@ class _Run:
     num: np.ndarray
     den: np.ndarray
     ideal: tuple[np.ndarray, np.ndarray]
+    rhp: np.ndarray | None = None  # closed-loop roots with Re >= -1e-9·|root|, per sample (None: no plant)
 
 
 def _run(engine: _Engine, vals: np.ndarray, gbw: np.ndarray | None, workers: int, *, check: bool = True) -> _Run:
@@ -1161,9 +1554,7 @@ def _run(engine: _Engine, vals: np.ndarray, gbw: np.ndarray | None, workers: int
     corners = engine.corners(factors)
     inum, iden = engine.ideal_polys(gain, factors)
     num, den = engine.stage_polys(vals, gbw, inum, iden)
-    with np.errstate(divide="ignore"):
-        dc = 20.0 * np.log10(np.abs(num[0])) - 20.0 * np.log10(np.abs(den[0]))
-    dc = np.where(den[0] == 0, np.inf, np.where(num[0] == 0, -np.inf, dc))
+    dc = _dc_gain_db(num, den)
     lnm = np.empty((nf, n))
     turns = np.empty((nf, n))
     cross = engine.plant_fn is not None
@@ -1180,10 +1571,27 @@ def _run(engine: _Engine, vals: np.ndarray, gbw: np.ndarray | None, workers: int
         results = [job(b) for b in bounds]
     if check:
         _check_finite(engine, lnm, turns)
-    fc = pm = gm = count = None
+    fc = pm = gm = count = rhp = None
     if cross:
         fc, pm, gm, count = engine.margins(num, den, n, [r[0] for r in results], [r[1] for r in results])
-    return _Run(corners, dc, lnm, turns, fc, pm, gm, count, num, den, (inum, iden))
+        rhp = engine.closed_loop_rhp(num, den)
+    return _Run(corners, dc, lnm, turns, fc, pm, gm, count, num, den, (inum, iden), rhp)
+
+
+def _dc_gain_db(num: np.ndarray, den: np.ndarray) -> np.ndarray:
+    """20·log10|H(0)| per sample (±inf for an origin pole or zero)."""
+    with np.errstate(divide="ignore"):
+        dc = 20.0 * np.log10(np.abs(num[0])) - 20.0 * np.log10(np.abs(den[0]))
+    return np.where(den[0] == 0, np.inf, np.where(num[0] == 0, -np.inf, dc))
+
+
+def _stage_quantities(engine: _Engine, vals: np.ndarray, gbw: np.ndarray | None) -> dict[str, np.ndarray]:
+    """Corners and DC gain only (no frequency grid): what the search of those quantities needs."""
+    gain, factors = engine.factor_arrays(vals)
+    out = engine.corners(factors)
+    num, den = engine.stage_polys(vals, gbw, *engine.ideal_polys(gain, factors))
+    out["dc_gain_db"] = _dc_gain_db(num, den)
+    return out
 
 
 def _check_finite(engine: _Engine, lnm: np.ndarray, turns: np.ndarray) -> None:
@@ -1214,12 +1622,15 @@ def _envelope(a: np.ndarray, scale: float, workers: int) -> Envelope:
     return Envelope(scale * a[:, 0], scale * a[:, -1], pct(1.0), pct(50.0), pct(99.0))
 
 
-def _nominal(engine: _Engine) -> dict[str, float]:
+def _nominal(engine: _Engine, *, with_stability: bool = False):
+    """Every quantity at nominal values; with ``with_stability`` also whether the closed loop is stable."""
     r = _run(engine, engine.nominal_values[:, None], None, 1)
     out = {k: float(v[0]) for k, v in r.corners.items()}
     out["dc_gain_db"] = float(r.dc_gain_db[0])
     if r.fc is not None:
         out.update(crossover_hz=float(r.fc[0]), phase_margin_deg=float(r.pm[0]), gain_margin_db=float(r.gm[0]))
+    if with_stability:
+        return out, (None if r.rhp is None else bool(r.rhp[0] == 0))
     return out
 
 
@@ -1302,8 +1713,9 @@ def evaluate_batch(design, values: Mapping[str, Any], f_hz: Any = None, *, gbw_h
         loop = engine.loop_k * engine.plant_fn.evaluate(s)[None, :] * stage
         loop_db = mag_db + engine.loop_db_offset[None, :]
         loop_ph = phase_deg + engine.loop_ph_offset[None, :]
+    stable = None if r.rhp is None else r.rhp == 0
     return Batch(engine.f_hz, ideal, stage, mag_db, phase_deg, loop, loop_db, loop_ph, r.corners, r.dc_gain_db,
-                 r.fc, r.pm, r.gm, r.count)
+                 r.fc, r.pm, r.gm, r.count, r.rhp, stable)
 
 
 def monte_carlo(design, samples: int = 10000, *, seed: int = 1, f_hz: Any = None, spec: Any = None,
@@ -1362,7 +1774,7 @@ def monte_carlo(design, samples: int = 10000, *, seed: int = 1, f_hz: Any = None
     vals = engine.nominal_values[:, None] * mult[:-1]
     gbw = engine.gbw0 * mult[-1] if ts.gbw > 0 else None
     r = _run(engine, vals, gbw, nw, check=False)
-    nominal = _nominal(engine)
+    nominal, nominal_stable = _nominal(engine, with_stability=True)
     stage_mag = _envelope(r.lnm, _DBK, nw)
     stage_ph = _envelope(r.turns, 360.0, nw)
     # Sorted rows: NaN and ±inf sit at the ends, so the ends tell whether every value is finite.
@@ -1382,15 +1794,16 @@ def monte_carlo(design, samples: int = 10000, *, seed: int = 1, f_hz: Any = None
     sp_ = parse_spec(spec, "spec") if spec is not None else (
         parse_spec(design.spec, "spec") if design.spec is not None else None)
     y = passed = item_y = None
+    stable = None if r.rhp is None else r.rhp == 0
     if sp_ is not None and sp_.item_names:
         masks = sample_pass(sp_, {"phase_margin_deg": r.pm, "gain_margin_db": r.gm, "crossover_hz": r.fc,
-                                  "corners": r.corners, "dc_gain_db": r.dc_gain_db}, samples)
+                                  "corners": r.corners, "dc_gain_db": r.dc_gain_db, "stable": stable}, samples)
         passed = np.logical_and.reduce(list(masks.values()))
         y = float(passed.mean())
         item_y = {k: float(v.mean()) for k, v in masks.items()}
     return Spread(engine.f_hz, samples, seed, ts.distribution, tol_out, values, engine.opamp is not None,
                   stage_mag, stage_ph, loop_mag, loop_ph, r.corners, r.dc_gain_db, r.fc, r.pm, r.gm, r.count,
-                  nominal, y, passed, item_y)
+                  nominal, y, passed, item_y, r.rhp, stable, nominal_stable)
 
 
 def _quantities(r: _Run) -> dict[str, np.ndarray]:
@@ -1401,9 +1814,9 @@ def _quantities(r: _Run) -> dict[str, np.ndarray]:
     return out
 
 
-def worst_case(design, *, f_hz: Any = None, tolerances: Any = None, method: str = "auto",
-               workers: int | None = None) -> WorstCase:
-    """Worst-case corner search over the tolerance box.
+def worst_case(design, *, f_hz: Any = None, tolerances: Any = None, method: str = "auto", search: bool = True,
+               seed: int = 1, workers: int | None = None) -> WorstCase:
+    """Worst case over the tolerance box: its vertices, then a local search of the interior.
 
     Parameters
     ----------
@@ -1413,25 +1826,38 @@ def worst_case(design, *, f_hz: Any = None, tolerances: Any = None, method: str 
     tolerances : mapping, optional
         A ``tolerances`` section overriding the design's.
     method : {"auto", "corners", "sensitivity"}
-        ``"corners"`` evaluates all 2^n vertices (n toleranced parameters, at most 20);
-        ``"sensitivity"`` sets each parameter to the end that moves a quantity up (or down)
-        by the sign of ∂quantity/∂ln x at nominal — from :func:`loopcraft.sensitivity.sensitivity`
-        for corners, by central differences on the batched evaluator for the loop quantities, the
-        DC gain and the GBW; ``"auto"`` uses corners when n <= 12.
+        The vertices tried first: ``"corners"`` evaluates all 2^n vertices (n toleranced
+        parameters, at most 20); ``"sensitivity"`` sets each parameter to the end that moves a
+        quantity up (or down) by the sign of ∂quantity/∂ln x at nominal — from
+        :func:`loopcraft.sensitivity.sensitivity` for corners, by central differences on the
+        batched evaluator for the loop quantities, the DC gain and the GBW; ``"auto"`` uses
+        corners when n <= 12.
+    search : bool
+        Also search the inside of the box (see the module docstring); False reports the best
+        vertex or the nominal only.
+    seed : int
+        Seed of the random points the search starts from (``numpy.random.default_rng``).
     workers : int, optional
         Threads (default: up to 4, the CPU count).
 
     Returns
     -------
     WorstCase
+        Per quantity the smallest and largest value found (the nominal value included), where
+        (``location``: corner, face or interior) and whether the closed loop is stable there.
+        With a plant, a point whose closed loop is not stable has phase and gain margin -inf.
 
     Raises
     ------
     AnalysisError
-        No tolerances, nothing toleranced, an unknown method, or too many parameters for "corners".
+        No tolerances, nothing toleranced, an unknown method, too many parameters for
+        "corners", a bad seed, or a stage that degenerates at a vertex.
     """
     if method not in ("auto", "corners", "sensitivity"):
         raise AnalysisError(f"method must be 'auto', 'corners' or 'sensitivity' (got {method!r})")
+    if not isinstance(search, bool):
+        raise AnalysisError(f"search must be True or False (got {search!r})")
+    seed = _check_int("seed", seed, 0, 2**63 - 1)
     nw = _workers(workers)
     ts = _tolerance_set(design, tolerances)
     engine = _Engine(design, f_hz)
@@ -1445,69 +1871,238 @@ def worst_case(design, *, f_hz: Any = None, tolerances: Any = None, method: str 
         method = "corners" if n <= MAX_EXHAUSTIVE else "sensitivity"
     if method == "corners" and n > 20:
         raise AnalysisError(f"{n} toleranced parameters give 2^{n} corners; use method='sensitivity'")
-    nominal = _nominal(engine)
+    nominal, nominal_stable = _nominal(engine, with_stability=True)
     col = {nm: j for j, nm in enumerate(names)}
     t_vec = np.array([tol[p] for p in params])
+    x0 = np.array([engine.gbw0 if p == "gbw" else engine.nominal_values[col[p]] for p in params])
 
-    def build(signs: np.ndarray):
-        """Part values (parts, M) and GBW (M,) or None for sign rows (M, n)."""
-        vals = np.repeat(engine.nominal_values[:, None], signs.shape[0], axis=1)
+    def build(z: np.ndarray):
+        """Part values (parts, M) and GBW (M,) or None for normalized points z (M, n) in [-1, 1]."""
+        vals = np.repeat(engine.nominal_values[:, None], z.shape[0], axis=1)
         gbw = None
         for k, p in enumerate(params):
-            factor = 1.0 + t_vec[k] * signs[:, k]
+            factor = 1.0 + t_vec[k] * z[:, k]
             if p == "gbw":
                 gbw = engine.gbw0 * factor
             else:
                 vals[col[p]] *= factor
         return vals, gbw
 
-    def vertex_values(sign_row: np.ndarray) -> dict[str, float]:
-        out = {}
-        for k, p in enumerate(params):
-            x0 = engine.gbw0 if p == "gbw" else engine.nominal_values[col[p]]
-            out["gbw_hz" if p == "gbw" else p] = float(x0 * (1.0 + t_vec[k] * sign_row[k]))
-        return out
-
-    def signs_dict(row: np.ndarray) -> dict[str, int]:
-        return {p: int(row[k]) for k, p in enumerate(params)}
-
-    extremes: dict[str, Extreme] = {}
     env = {}
     if method == "corners":
-        signs = 1.0 - 2.0 * ((np.arange(2**n)[:, None] >> np.arange(n)[None, :]) & 1)
-        vals, gbw = build(signs)
-        r = _run(engine, vals, gbw, nw)
+        verts = 1.0 - 2.0 * ((np.arange(2**n)[:, None] >> np.arange(n)[None, :]) & 1)
+    else:
+        sgn = _sensitivity_signs(design, engine, params, build, nominal, nw)
+        verts = np.vstack([np.vstack([sgn[q], -sgn[q]]) for q in sgn])
+    vals, gbw = build(verts)
+    r = _run(engine, vals, gbw, nw)
+    if method == "corners":
         env["stage_mag_db_min"], env["stage_mag_db_max"] = _DBK * r.lnm.min(axis=1), _DBK * r.lnm.max(axis=1)
         if engine.plant_fn is not None:
             env["loop_mag_db_min"] = env["stage_mag_db_min"] + engine.loop_db_offset
             env["loop_mag_db_max"] = env["stage_mag_db_max"] + engine.loop_db_offset
-        for q, v in _quantities(r).items():
-            extremes[q] = _extreme(q, v, signs, nominal.get(q, math.nan), vertex_values, signs_dict)
-        n_eval = signs.shape[0]
-    else:
-        sgn = _sensitivity_signs(design, engine, params, build, nominal, nw)
-        qs = list(sgn)
-        rows = np.vstack([np.vstack([sgn[q], -sgn[q]]) for q in qs])
-        vals, gbw = build(rows)
-        r = _run(engine, vals, gbw, nw)
-        allq = _quantities(r)
-        for k, q in enumerate(qs):
-            v = allq[q][2 * k:2 * k + 2]
-            extremes[q] = _extreme(q, v, rows[2 * k:2 * k + 2], nominal.get(q, math.nan), vertex_values, signs_dict)
-        n_eval = rows.shape[0]
-    return WorstCase(engine.f_hz, method, tuple(params), tol, n_eval, extremes, **env)
+    v_eff, v_stable = _effective(r)
+    qnames = list(v_eff)
+    nom_eff = {q: nominal.get(q, math.nan) for q in qnames}
+    if nominal_stable is False:
+        for q in _MARGINS:
+            if q in nom_eff:
+                nom_eff[q] = -math.inf
+    best = _Best(qnames, n, nom_eff, nominal_stable)
+    best.update(v_eff, verts, v_stable)
+    unstable_vertices = None if v_stable is None else int((~v_stable).sum())
+    any_unstable = (nominal_stable is False) or bool(unstable_vertices)
+    n_searched = 0
+    if search:
+        def evaluate(z: np.ndarray, full: bool = True):
+            vz, gz = build(z)
+            if not full:
+                return _stage_quantities(engine, vz, gz), None
+            return _effective(_run(engine, vz, gz, nw, check=False))
+
+        rnd = np.random.default_rng(seed).uniform(-1.0, 1.0, size=(_SEARCH_RANDOM, n))
+        e_rnd, s_rnd = evaluate(rnd)
+        best.update(e_rnd, rnd, s_rnd)
+        n_searched = rnd.shape[0]
+        any_unstable |= s_rnd is not None and not s_rnd.all()
+        # Starts per quantity and direction: the best vertex, the best random point, and the
+        # nominal when no vertex beats it (an extreme near nominal).
+        starts = []  # (quantity index, +1 min / -1 max, z)
+        for qi, q in enumerate(qnames):
+            for sg in (1.0, -1.0):
+                nom_obj = sg * nom_eff[q]
+                for vv, zz in ((v_eff[q], verts), (e_rnd[q], rnd)):
+                    obj = np.where(np.isnan(vv), np.inf, sg * vv)
+                    i = int(np.argmin(obj))
+                    if np.isfinite(obj[i]):
+                        starts.append((qi, sg, zz[i], obj[i]))
+                    if zz is verts and math.isfinite(nom_obj) and not obj[i] < nom_obj:
+                        starts.append((qi, sg, np.zeros(n), nom_obj))
+        loop_q = frozenset(q for q in qnames if q in ("crossover_hz",) + _MARGINS)
+        scale = np.zeros(len(qnames))
+        for k, q in enumerate(qnames):
+            both = np.concatenate([v_eff[q], e_rnd[q], [nom_eff[q]]])
+            both = both[np.isfinite(both)]
+            scale[k] = np.ptp(both) if both.size else 0.0
+        n_eval, unstable_seen = _pattern_search(starts, qnames, n, evaluate, best, loop_q, scale)
+        n_searched += n_eval
+        any_unstable |= unstable_seen
+
+    def at(z: np.ndarray):
+        z = np.clip(z, -1.0, 1.0)
+        vals_ = {("gbw_hz" if p == "gbw" else p): float(x0[k] * (1.0 + t_vec[k] * z[k])) for k, p in enumerate(params)}
+        signs = {p: (int(np.sign(z[k])) if abs(z[k]) == 1.0 else 0) for k, p in enumerate(params)}
+        pos = {p: float(z[k]) for k, p in enumerate(params)}
+        ends = np.abs(z) == 1.0
+        loc = "corner" if ends.all() else ("interior" if not ends.any() else "face")
+        return vals_, signs, pos, loc
+
+    extremes: dict[str, Extreme] = {}
+    for qi, q in enumerate(qnames):
+        lo, hi = best.value[qi]
+        lo_v, lo_s, lo_p, lo_l = at(best.z[qi, 0])
+        hi_v, hi_s, hi_p, hi_l = at(best.z[qi, 1])
+        undefined = int(np.isnan(v_eff[q]).sum())
+        extremes[q] = Extreme(q, _unit(q), nominal.get(q, math.nan), float(lo), float(hi), lo_v, hi_v, lo_s, hi_s,
+                              undefined,
+                              lo_l, hi_l, lo_p, hi_p, best.stable[qi][0], best.stable[qi][1])
+    return WorstCase(engine.f_hz, method, tuple(params), tol, int(verts.shape[0]), extremes, **env,
+                     search=search, n_searched=n_searched, nominal_stable=nominal_stable,
+                     n_unstable=unstable_vertices, unstable_found=None if v_stable is None else any_unstable)
 
 
-def _extreme(q, v, signs, nominal, vertex_values, signs_dict) -> Extreme:
-    v = np.asarray(v, dtype=float)
-    undefined = int(np.isnan(v).sum())
-    if undefined == v.size:
-        empty: dict = {}
-        return Extreme(q, _unit(q), nominal, math.nan, math.nan, empty, empty, empty, empty, undefined)
-    i_lo = int(np.nanargmin(v))
-    i_hi = int(np.nanargmax(v))
-    return Extreme(q, _unit(q), nominal, float(v[i_lo]), float(v[i_hi]), vertex_values(signs[i_lo]),
-                   vertex_values(signs[i_hi]), signs_dict(signs[i_lo]), signs_dict(signs[i_hi]), undefined)
+#: Quantities that an unstable closed loop fails outright (they become -inf there).
+_MARGINS = ("phase_margin_deg", "gain_margin_db")
+#: Seeded uniform points in the box that the interior search also starts from.
+_SEARCH_RANDOM = 128
+#: Pattern search: first step, smallest step, most iterations (normalized box units).
+_SEARCH_STEP0 = 0.25
+_SEARCH_STEP_MIN = 1e-3
+_SEARCH_MAX_ITER = 60
+#: A move must gain this fraction of the quantity's spread per unit step (normalized units).
+_SEARCH_SLOPE = 1e-3
+
+
+def _effective(r: _Run) -> tuple[dict[str, np.ndarray], np.ndarray | None]:
+    """Every quantity per point, the margins -inf where the closed loop is not stable; the stable mask."""
+    out = _quantities(r)
+    if r.rhp is None:
+        return out, None
+    stable = r.rhp == 0
+    for q in _MARGINS:
+        out[q] = np.where(stable, out[q], -np.inf)
+    return out, stable
+
+
+class _Best:
+    """The smallest and largest value of every quantity seen so far, where, and whether stable there.
+
+    A later point replaces the record only when it is better by more than 1e-12 relative, so ties
+    keep the first point seen: the nominal, then the vertices.
+    """
+
+    def __init__(self, qnames: list[str], n: int, nominal: dict[str, float], nominal_stable: bool | None) -> None:
+        self.qnames = qnames
+        self.value = np.array([[nominal[q], nominal[q]] for q in qnames], dtype=float).reshape(len(qnames), 2)
+        self.z = np.zeros((len(qnames), 2, n))
+        self.stable: list[list[bool | None]] = [[nominal_stable, nominal_stable] for _ in qnames]
+
+    @staticmethod
+    def _better(new: float, old: float, sign: float) -> bool:
+        if math.isnan(new):
+            return False
+        if math.isnan(old):
+            return True
+        return sign * (old - new) > 1e-12 * abs(old) if math.isfinite(old) else sign * (old - new) > 0
+
+    def update(self, values: dict[str, np.ndarray], z: np.ndarray, stable: np.ndarray | None) -> None:
+        for qi, q in enumerate(self.qnames):
+            v = values.get(q)
+            if v is None or np.isnan(v).all():
+                continue
+            for j, (sign, arg) in enumerate(((1.0, np.nanargmin), (-1.0, np.nanargmax))):
+                i = int(arg(v))
+                if self._better(float(v[i]), float(self.value[qi, j]), sign):
+                    self.value[qi, j] = v[i]
+                    self.z[qi, j] = z[i]
+                    self.stable[qi][j] = None if stable is None else bool(stable[i])
+
+
+def _pattern_search(starts, qnames: list[str], n: int, evaluate, best: _Best, loop_q: frozenset[str],
+                    scale: np.ndarray) -> tuple[int, bool]:
+    """Batched bounded compass search over the normalized box [-1, 1]^n.
+
+    Each round every search polls z ± h·e_k, its last move repeated, and a step of h along the
+    (box-projected) descent direction its previous polls estimate. ``starts`` holds (quantity
+    index, +1 for min / -1 for max, z, objective at z); ``scale`` the spread of each quantity
+    over the points seen. A search moves to its best poll when that improves its objective
+    (its quantity, signed for min or max) by more than ``_SEARCH_SLOPE·scale·h`` (a sufficient
+    decrease, so it does not creep along a nearly flat ridge), doubling h (up to 1), and halves
+    h otherwise; it stops below the smallest step or at -inf (an unstable margin), and when it
+    lands on the point of another search of the same quantity and direction. The polls of all
+    searches go through the evaluator as one batch per round (the full loop evaluation for the quantities in ``loop_q``,
+    corners and DC gain only for the others); every evaluated point also updates ``best``.
+    Returns the number of points evaluated and whether any was unstable. Compass search as in
+    Kolda, Lewis & Torczon, "Optimization by direct search: new perspectives on some classical
+    and modern methods", SIAM Review 45, 2003.
+    """
+    if not starts:
+        return 0, False
+    qi = np.array([s[0] for s in starts])
+    sg = np.array([s[1] for s in starts])
+    z = np.array([s[2] for s in starts], dtype=float)
+    f = np.array([s[3] for s in starts], dtype=float)
+    m = z.shape[0]
+    h = np.where(np.isfinite(f), _SEARCH_STEP0, 0.0)
+    last = np.zeros((m, n))
+    down = np.zeros((m, n))  # estimated descent direction, max-norm 1
+    dirs = np.vstack([np.eye(n), -np.eye(n)])
+    is_loop = np.array([qnames[k] in loop_q for k in qi])
+    count = 0
+    unstable = False
+    for _ in range(_SEARCH_MAX_ITER):
+        seen: set[tuple] = set()
+        for s in np.flatnonzero(h >= _SEARCH_STEP_MIN):
+            key = (int(qi[s]), float(sg[s]), z[s].tobytes())
+            if key in seen:
+                h[s] = 0.0  # the same point as another search: one is enough
+            seen.add(key)
+        act_all = np.flatnonzero(h >= _SEARCH_STEP_MIN)
+        if act_all.size == 0:
+            break
+        for full in (True, False):
+            act = act_all[is_loop[act_all] == full]
+            if act.size == 0:
+                continue
+            polls = z[act][:, None, :] + h[act][:, None, None] * dirs[None, :, :]
+            extra = np.stack([z[act] + last[act], z[act] + h[act][:, None] * down[act]], axis=1)
+            pts = np.concatenate([polls, extra], axis=1)
+            k_pts = pts.shape[1]
+            pts = np.clip(pts, -1.0, 1.0).reshape(-1, n)
+            values, stable = evaluate(pts, full)
+            count += pts.shape[0]
+            unstable |= stable is not None and not stable.all()
+            best.update(values, pts, stable)
+            for j, s in enumerate(act):
+                v = sg[s] * values[qnames[qi[s]]][j * k_pts:(j + 1) * k_pts]
+                v = np.where(np.isnan(v), np.inf, v)
+                g = v[n:2 * n] - v[:n]  # descent estimate from the polls
+                g = np.where(np.isfinite(g), g, 0.0)
+                i = int(np.argmin(v))
+                need = max(_SEARCH_SLOPE * scale[qi[s]] * h[s], 1e-12 * abs(f[s]))
+                if v[i] < f[s] - need:
+                    new_z = pts[j * k_pts + i]
+                    last[s] = new_z - z[s]
+                    z[s] = new_z
+                    f[s] = v[i]
+                    h[s] = min(2.0 * h[s], 1.0) if np.isfinite(f[s]) else 0.0
+                else:
+                    h[s] *= 0.5
+                    last[s] = 0.0
+                g[((z[s] >= 1.0) & (g > 0)) | ((z[s] <= -1.0) & (g < 0))] = 0.0  # projected on the box
+                gmax = np.max(np.abs(g))
+                down[s] = g / gmax if gmax > 0 else 0.0
+    return count, unstable
 
 
 def _sensitivity_signs(design, engine: _Engine, params: list[str], build, nominal: dict[str, float],

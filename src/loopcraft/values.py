@@ -10,7 +10,9 @@ Accepted forms (all exact; anything else is rejected, never truncated):
   ``R47`` (0.47), ``4R7`` (4.7), ``1M5`` (1.5 M).
 
 Values must be finite, positive and within 1e-18 .. 1e15 of the base unit
-(ohm, farad, henry).
+(ohm, farad, henry). Text is at most 64 characters long; a number of any size
+(``10**400`` included) is refused with a :class:`ComponentValueError`, never
+an ``OverflowError``.
 """
 
 from __future__ import annotations
@@ -19,6 +21,7 @@ import math
 import re
 from numbers import Real
 
+from ._numbers import MAX_NUMBER_TEXT, real_float, shown
 from .errors import ComponentValueError
 
 __all__ = ["parse_value", "format_value", "unit_for", "MIN_VALUE", "MAX_VALUE"]
@@ -80,13 +83,14 @@ def _check_unit(name: str, text: str, unit: str | None, kind: str | None, pos: i
 
 
 def _check_range(name: str, x: float, text: object) -> float:
-    if not math.isfinite(x):
-        raise ComponentValueError(f"{name}: value must be finite (got {text!r})")
+    if math.isnan(x) or (math.isinf(x) and isinstance(text, float | str)):
+        raise ComponentValueError(f"{name}: value must be finite (got {shown(text)})")
     if x <= 0:
-        raise ComponentValueError(f"{name}: value must be > 0 (got {text!r})")
+        raise ComponentValueError(f"{name}: value must be > 0 (got {shown(text)})")
     if not (MIN_VALUE <= x <= MAX_VALUE):
         raise ComponentValueError(
-            f"{name}: value {text!r} is outside the accepted range {MIN_VALUE:g} .. {MAX_VALUE:g} of the base unit"
+            f"{name}: value {shown(text)} is outside the accepted range {MIN_VALUE:g} .. {MAX_VALUE:g} "
+            "of the base unit"
         )
     return x
 
@@ -176,10 +180,14 @@ def parse_value(value: str | float | int, *, name: str = "value", kind: str | No
     if isinstance(value, bool):
         raise ComponentValueError(f"{name}: expected a number or text, got a boolean {value!r}")
     if isinstance(value, Real):
-        return _check_range(name, float(value), value)
+        return _check_range(name, real_float(value), value)
     if not isinstance(value, str):
         raise ComponentValueError(
-            f"{name}: expected a number or text such as '10k', got {type(value).__name__} {value!r}"
+            f"{name}: expected a number or text such as '10k', got {type(value).__name__} {shown(value)}"
+        )
+    if len(value) > MAX_NUMBER_TEXT:
+        raise ComponentValueError(
+            f"{name}: text {shown(value)} is too long for a value (at most {MAX_NUMBER_TEXT} characters)"
         )
     return _check_range(name, _parse_text(value, name, kind), value)
 

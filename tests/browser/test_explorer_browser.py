@@ -194,3 +194,28 @@ def test_explorer_with_opamp_and_plant(lab_server: LabServer, clean_workspace, l
         " return t.split('Op-amp loop')[1] !== before.split('Op-amp loop')[1]; }",
         arg=margins_before, timeout=15_000)
     screenshot(page, artifacts_dir / "explorer_loop.png", selector=".jp-OutputArea-output:has(.lc-explorer)")
+
+
+def test_unstable_loop_says_so_first(lab_server: LabServer, clean_workspace, lab_page, artifacts_dir: Path) -> None:
+    # An integrator around four real poles: unstable (two closed-loop right-half-plane poles,
+    # counted by tests/test_stability.py against the Routh-Hurwitz criterion and numpy.roots).
+    design = ('loopcraft.Design.from_dict({"loopcraft": 1, "title": "Invented demo: unstable loop", '
+              '"stage": {"kind": "inverting", "input": "R1", "feedback": "C1"}, '
+              '"values": {"R1": "10k", "C1": "10n"}, '
+              '"plant": {"kind": "general", "gain": 424.7433, "poles_hz": [1000, 1000, 1000, 1000]}})')
+    nb = write_explorer_notebook(lab_server.root_dir, "explorer_unstable.ipynb", design)
+    page = lab_page
+    page.set_viewport_size(SHOT_VIEWPORT)
+    _accept_dialogs(page)
+    open_and_run(page, lab_server, nb.relative_to(lab_server.root_dir))
+    wait_for_svg(page, MAG_CLASS)
+    wait_for_svg(page, PHASE_CLASS)
+    page.wait_for_function("() => document.querySelector('.lc-margins').innerText.includes('UNSTABLE')",
+                           timeout=15_000)
+    text = page.locator(".lc-margins").first.inner_text()
+    assert text.strip().startswith("UNSTABLE") and "not a margin" in text
+    assert "phase margin" not in text
+    # the verdict word is drawn in the error colour, not the text colour
+    color = page.evaluate("() => getComputedStyle(document.querySelector('.lc-margins span')).color")
+    assert color == "rgb(161, 40, 40)"
+    screenshot(page, artifacts_dir / "explorer_unstable.png", selector=".jp-OutputArea-output:has(.lc-explorer)")
