@@ -130,3 +130,28 @@ def test_large_signal_warnings_from_input_amplitude():
     assert d.large_signal_warnings(1.0, 50e3) == ()  # 3.1 V/µs needed: within 5 V/µs
     swing = d.large_signal_warnings(1.5, 1e3)  # 15 V peak asked of a 12 V swing
     assert len(swing) == 1 and "output swing exceeded" in swing[0]
+
+
+def test_oscillating_differentiator_is_called_unstable():
+    # An ideal differentiator (input C1 = 100 nF, feedback R1 = 10 kΩ) on a two-pole op-amp whose
+    # second pole (300 kHz) lies below where |A| meets the rising noise gain: the amplifier loop
+    # closes at 60 dB/decade and oscillates. Independent check: the closed loop of A = A0/((1 +
+    # s/ωa)(1 + s/ω2)) with noise gain 1 + sR1C1 has the characteristic polynomial
+    # (1 + s/ωa)(1 + s/ω2)(1 + s·R1·C1) + A0 (from memory: H_actual = H/(1 + Gn/A)), whose roots
+    # numpy.roots finds.
+    import loopcraft as lc
+
+    d = lc.topology("differentiator").to_dict()
+    d["opamp"] = {"model": "two_pole", "a0_db": 100, "gbw_hz": "10M", "second_pole_hz": "300k"}
+    des = lc.Design.from_dict(d)
+    amp = des.amplifier_loop()
+    a0, wa, w2, rc = 1e5, 2 * np.pi * 10e6 / 1e5, 2 * np.pi * 300e3, 10e3 * 100e-9
+    q = np.polymul(np.polymul([1 / wa, 1.0], [1 / w2, 1.0]), [rc, 1.0])
+    q[-1] += a0
+    ref_rhp = int(np.sum(np.roots(q).real > 0))
+    assert ref_rhp == 2
+    assert amp.stage_rhp_poles == ref_rhp and not amp.stable
+    assert amp.warnings[0].startswith("UNSTABLE") and amp.to_dict()["stage_stable"] is False
+    # with the second pole well above the intersection the same stage settles
+    d["opamp"]["second_pole_hz"] = "100M"
+    assert lc.Design.from_dict(d).amplifier_loop().stable

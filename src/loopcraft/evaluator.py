@@ -37,7 +37,7 @@ from .factors import (
     factors_from_roots,
     polynomial_roots,
 )
-from .values import parse_value
+from .values import MAX_VALUE, MIN_VALUE, parse_value
 
 __all__ = ["Evaluator", "TransferResult", "compile_derivation"]
 
@@ -225,7 +225,10 @@ class Evaluator:
             if n not in values:
                 raise ComponentValueError(f"{n}: no value given")
             v = values[n]
-            out.append(v if type(v) is float and 0.0 < v < math.inf else parse_value(v, name=n, kind=self._kinds[n]))
+            # Fast path for plain floats inside the documented range; anything else (text, ints,
+            # out-of-range or non-finite numbers) goes through the validating parser.
+            out.append(v if type(v) is float and MIN_VALUE <= v <= MAX_VALUE
+                       else parse_value(v, name=n, kind=self._kinds[n]))
         return tuple(out)
 
     def coefficients(self, vals: tuple[float, ...]) -> list[float]:

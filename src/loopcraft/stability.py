@@ -63,7 +63,7 @@ import numpy as np
 
 from .asymptote import _exact_phase_deg_u
 from .errors import AnalysisError
-from .factors import Factor, FactoredNumeric, polynomial_roots
+from .factors import CANCEL_REL_TOL, Factor, FactoredNumeric, cancel_roots, polynomial_roots
 
 __all__ = [
     "CANCEL_REL_TOL",
@@ -74,8 +74,6 @@ __all__ = [
     "gain_range",
 ]
 
-#: Relative distance below which a zero and a pole of the loop are one cancelled pair.
-CANCEL_REL_TOL = 1e-9
 #: A closed-loop root with ``|Re| <= AXIS_REL_TOL·|root|`` counts as on the jω axis (marginal).
 AXIS_REL_TOL = 1e-9
 _REFINE_DEG = 15.0
@@ -252,26 +250,12 @@ def _roots_of(fn: FactoredNumeric) -> tuple[np.ndarray, np.ndarray]:
 
 
 def _cancel(zeros: np.ndarray, poles: np.ndarray, rel_tol: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Remove zero/pole pairs closer than ``rel_tol`` (relative); return (zeros, poles, cancelled)."""
-    zs = list(zeros)
-    ps = list(poles)
-    cancelled = []
-    i = 0
-    while i < len(zs):
-        z = zs[i]
-        best, best_d = -1, math.inf
-        for j, p in enumerate(ps):
-            d = abs(z - p)
-            if d <= rel_tol * max(abs(z), abs(p)) and d < best_d:
-                best, best_d = j, d
-        if best >= 0:
-            cancelled.append(0.5 * (z + ps[best]))
-            ps.pop(best)
-            zs.pop(i)
-        else:
-            i += 1
-    arr = lambda xs: np.array(xs, dtype=complex)  # noqa: E731
-    return arr(zs), arr(ps), arr(cancelled)
+    """Remove coinciding zero/pole pairs; return (zeros, poles, cancelled poles).
+
+    The one cancellation policy of the package (:func:`loopcraft.factors.cancel_roots`).
+    """
+    c = cancel_roots(zeros, poles, rel_tol=rel_tol)
+    return np.asarray(c.zeros, dtype=complex), np.asarray(c.poles, dtype=complex), c.cancelled
 
 
 def _poly_asc(roots: np.ndarray) -> np.ndarray:

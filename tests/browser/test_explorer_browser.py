@@ -218,4 +218,6 @@ def test_unstable_loop_says_so_first(lab_server: LabServer, clean_workspace, lab
     # the verdict word is drawn in the error colour, not the text colour
     color = page.evaluate("() => getComputedStyle(document.querySelector('.lc-margins span')).color")
     assert color == "rgb(161, 40, 40)"
+    # and it heads the figure, above the curves
+    assert "closed loop UNSTABLE" in page.locator(".lc-legend").first.inner_text()
     screenshot(page, artifacts_dir / "explorer_unstable.png", selector=".jp-OutputArea-output:has(.lc-explorer)")

@@ -141,7 +141,15 @@ def _symbol(char: str, color: str) -> str:
 
 
 @functools.cache
-def _legend(curves: tuple[str, ...], has_margins: bool, has_amp: bool) -> str:
+def _legend(curves: tuple[str, ...], has_margins: bool, has_amp: bool, verdict: str | None = None) -> str:
+    badge = ""
+    if verdict is not None:
+        # The closed-loop verdict heads the figure: STABLE in green, anything else in red.
+        word = {"stable": "STABLE", "unstable": "UNSTABLE", "marginal": "MARGINAL",
+                "uncertain": "STABILITY UNCERTAIN"}.get(verdict, verdict.upper())
+        color = COLORS["ok"] if verdict == "stable" else COLORS["error"]
+        badge = (f'<span class="lc-verdict" style="white-space:nowrap; margin-right:14px; color:{color}; '
+                 f'font-weight:700">● closed loop {html.escape(word)}</span>')
     items = [(_swatch(COLORS["ideal"], "solid"), "stage, ideal op-amp"),
              (_swatch(COLORS["asymptote"], "dashed"), "asymptotes")]
     if "actual" in curves:
@@ -154,8 +162,8 @@ def _legend(curves: tuple[str, ...], has_margins: bool, has_amp: bool) -> str:
         items.append((_symbol("┃", COLORS["gain_margin"]), "GM"))
     if has_amp:
         items.append((_swatch(COLORS["opamp_loop"], "dotted"), "op-amp loop crossover"))
-    cells = "".join(f'<span style="white-space:nowrap; margin-right:14px">{sym}{html.escape(text)}</span>'
-                    for sym, text in items)
+    cells = badge + "".join(f'<span style="white-space:nowrap; margin-right:14px">{sym}{html.escape(text)}</span>'
+                            for sym, text in items)
     return (f'<div class="{CSS_CLASS["legend"]}" style="box-sizing:border-box; width:100%; font-size:12px; '
             f'color:{COLORS["text"]}; line-height:1.8; padding:0 0 0 {FIGURE_MARGIN["left"]}px">{cells}</div>')
 
@@ -422,7 +430,9 @@ class BodeView:
             tuple(seg_kinds), tuple(g[0] for g in guides), tuple(g[1] for g in guides),
             np.array(ph_x, dtype=float).reshape(-1, 2), np.array(ph_y, dtype=float).reshape(-1, 2),
             tuple(ph_kinds), tuple(mag_labels), tuple(ph_labels), mag_range, phase_range,
-            _margins_html(a, amp), _legend(tuple(names), a.loop is not None, amp is not None),
+            _margins_html(a, amp),
+            _legend(tuple(names), a.loop is not None, amp is not None,
+                    a.loop.stability.verdict if a.loop is not None else None),
             a.loop.stability.verdict if a.loop is not None else None,
         )
 
