@@ -5,7 +5,7 @@ PY ?= python3
 VENV ?= .venv
 BIN := $(VENV)/bin
 
-.PHONY: lab test venv bench clean
+.PHONY: lab test venv bench screenshot clean
 
 $(BIN)/.installed: pyproject.toml
 	$(PY) -m venv $(VENV)
@@ -23,6 +23,10 @@ lab: venv
 
 test: venv
 	$(BIN)/python -m pytest
+
+# Refresh the README screenshot (docs/explorer.png) from the real-browser test.
+screenshot: venv
+	LOOPCRAFT_UPDATE_DOCS=1 LOOPCRAFT_REQUIRE_BROWSER=1 $(BIN)/python -m pytest tests/browser/test_explorer_browser.py -k slider_key
 
 bench: venv
 	for f in benchmarks/bench_*.py; do $(BIN)/python $$f || exit 1; done

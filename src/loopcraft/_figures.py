@@ -206,6 +206,9 @@ def bode_png(design, margins=None, amplifier_loop=None, *, spread=None, stable: 
     title = design.title or "Bode plot"
     title = title if len(title) <= 90 else title[:87] + "…"
     fig.suptitle(mathtext_plain(title), fontsize=11)  # user text: drawn as itself, never as mathtext
+    if margins is not None and not stable:
+        fig.text(0.5, 0.925, "closed loop UNSTABLE: the numbers on this plot are not margins",
+                 ha="center", color="#a12828", fontsize=10, fontweight="bold")
     return _png(fig, canvas)
 
 

@@ -5,12 +5,14 @@ Opens a notebook (written here with nbformat) that shows
 real arrow key on the R2 slider and checks that the kernel round trip
 redraws the Bode magnitude path, moves the entry text and highlights the
 corners R2 sets. Hovering a pole shows the parts that set it. Screenshots go
-to ``tests/_artifacts/`` (``explorer.png`` is also copied to ``docs/``). No
+to ``tests/_artifacts/``; ``make screenshot`` (LOOPCRAFT_UPDATE_DOCS=1) also copies
+``explorer.png`` to ``docs/`` for the README, so ``make test`` never modifies tracked files. No
 timing asserts: figures go to ``benchmarks/bench_explorer_browser.py``.
 """
 
 from __future__ import annotations
 
+import os
 import shutil
 import urllib.error
 import urllib.request
@@ -159,8 +161,9 @@ def test_explorer_slider_key_redraws_bode(lab_server: LabServer, clean_workspace
     page.mouse.move(5, 5)
     shot = screenshot(page, artifacts_dir / "explorer.png", selector=".jp-OutputArea-output:has(.lc-explorer)")
     assert shot.stat().st_size > 20_000
-    DOCS_DIR.mkdir(exist_ok=True)
-    shutil.copyfile(shot, DOCS_DIR / "explorer.png")
+    if os.environ.get("LOOPCRAFT_UPDATE_DOCS") == "1":  # `make screenshot` refreshes the README image
+        DOCS_DIR.mkdir(exist_ok=True)
+        shutil.copyfile(shot, DOCS_DIR / "explorer.png")
 
 
 @pytest.mark.browser
