@@ -21,7 +21,7 @@ import numpy as np
 import sympy as sp
 
 import loopcraft as lc
-from loopcraft._symbols import S
+from loopcraft.symbolic.symbols import S
 
 DESIGN = {
     "loopcraft": 1,

@@ -24,7 +24,7 @@ import numpy as np
 
 import loopcraft as lc
 from loopcraft.analysis import Analyzer
-from loopcraft.tolerance import monte_carlo
+from loopcraft.analysis.tolerance import monte_carlo
 
 EXAMPLE = Path(lc.__file__).resolve().parent / "examples" / "bus48_loop.json"
 TOLERANCES = {"R*": "1%", "C*": "5%", "gbw": "30%", "distribution": "uniform"}

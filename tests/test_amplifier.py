@@ -7,7 +7,7 @@ import pytest
 
 from loopcraft import Design
 from loopcraft.errors import AnalysisError
-from loopcraft.opamp import OpAmp
+from loopcraft.model.opamp import OpAmp
 from loopcraft.topologies import topology
 
 

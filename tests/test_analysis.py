@@ -8,7 +8,7 @@ import scipy.signal as sig
 
 from loopcraft import load
 from loopcraft.analysis import Analyzer
-from loopcraft.asymptote import exact_phase_deg
+from loopcraft.numeric.asymptote import exact_phase_deg
 from loopcraft.topologies import topology, topology_names
 
 EX = Path(__file__).resolve().parents[1] / "src" / "loopcraft" / "examples"

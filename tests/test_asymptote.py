@@ -8,7 +8,8 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from loopcraft.asymptote import (
+from loopcraft.errors import AnalysisError
+from loopcraft.numeric.asymptote import (
     AsymptoteError,
     asymptote_error,
     asymptote_mag_db,
@@ -16,8 +17,7 @@ from loopcraft.asymptote import (
     exact_mag_db,
     exact_phase_deg,
 )
-from loopcraft.errors import AnalysisError
-from loopcraft.factors import Factor, FactoredNumeric
+from loopcraft.numeric.factors import Factor, FactoredNumeric
 
 TWO_PI = 2.0 * math.pi
 

@@ -1,4 +1,4 @@
-"""Tests of the symbolic modified-nodal-analysis solver (loopcraft.circuit)."""
+"""Tests of the symbolic modified-nodal-analysis solver (loopcraft.symbolic.circuit)."""
 
 from __future__ import annotations
 
@@ -9,9 +9,9 @@ import pytest
 import scipy.signal
 import sympy as sp
 
-from loopcraft._symbols import S, component_symbol
-from loopcraft.circuit import Circuit, OpampPins
 from loopcraft.errors import ComponentValueError, TopologyError
+from loopcraft.symbolic.circuit import Circuit, OpampPins
+from loopcraft.symbolic.symbols import S, component_symbol
 
 s = S
 R1, R2, R3, R4, R5 = (component_symbol(f"R{i}") for i in range(1, 6))

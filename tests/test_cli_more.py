@@ -1,4 +1,4 @@
-"""Tests of the report, check, snap and spread subcommands (loopcraft.cli_more).
+"""Tests of the report, check, snap and spread subcommands (loopcraft.cli.tools).
 
 Run through ``loopcraft.cli.main`` with captured output, plus one run of the
 installed console script. Engineering numbers are checked against the IEC

@@ -1,4 +1,4 @@
-"""Tests of loopcraft.compensators against published formulas and plain numerics.
+"""Tests of loopcraft.synthesis.compensators against published formulas and plain numerics.
 
 Every impedance, loop gain and polynomial below is built here from the
 component values with numpy (s = j·2π·f), not taken from the module.
@@ -16,13 +16,13 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from numpy.polynomial import Polynomial
 
-from loopcraft.compensators import (
+from loopcraft.errors import LoopcraftError, SynthesisError
+from loopcraft.synthesis.compensators import (
     TYPE3_MAX_BOOST_DEG,
     CompensatorDesign,
     k_factor,
     place,
 )
-from loopcraft.errors import LoopcraftError, SynthesisError
 
 TWO_PI = 2.0 * math.pi
 

@@ -1,4 +1,4 @@
-"""Tests of loopcraft.eseries against IEC 60063 and hand / brute-force checks.
+"""Tests of loopcraft.parts.eseries against IEC 60063 and hand / brute-force checks.
 
 Reference for the tables: IEC 60063:2015, "Preferred number series for resistors
 and capacitors" (International Electrotechnical Commission, 2015), cited below as
@@ -19,7 +19,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from loopcraft.errors import ComponentValueError, LoopcraftError
-from loopcraft.eseries import (
+from loopcraft.parts.eseries import (
     SERIES_NAMES,
     Combination,
     best_combination,

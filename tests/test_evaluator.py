@@ -9,8 +9,8 @@ import scipy.signal as sig
 import sympy as sp
 
 from loopcraft import Design
-from loopcraft._symbols import S, component_symbol
 from loopcraft.errors import ComponentValueError
+from loopcraft.symbolic.symbols import S, component_symbol
 
 
 def inv(zi, zf, **values):

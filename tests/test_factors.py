@@ -14,11 +14,10 @@ import scipy.signal as sig
 import sympy as sp
 
 from loopcraft import Design
-from loopcraft._symbols import S, component_symbol
 from loopcraft.errors import AnalysisError
-from loopcraft.evaluator import TransferResult
-from loopcraft.factored import FactoredForm
-from loopcraft.factors import (
+from loopcraft.numeric.evaluator import TransferResult
+from loopcraft.numeric.factored import FactoredForm
+from loopcraft.numeric.factors import (
     CANCEL_REL_TOL,
     JW_AXIS_REL_TOL,
     Factor,
@@ -26,6 +25,7 @@ from loopcraft.factors import (
     drop_cancelled,
     factors_from_roots,
 )
+from loopcraft.symbolic.symbols import S, component_symbol
 
 TWIN_T_VALUES = {"R1": "26.5k", "R2": "26.5k", "C1": "100n", "C2": "100n", "R3": "13.25k", "C3": "200n"}
 

@@ -1,4 +1,4 @@
-"""Tests of loopcraft.filters against handbook tables, closed forms and scipy.signal.
+"""Tests of loopcraft.synthesis.filters against handbook tables, closed forms and scipy.signal.
 
 Every circuit is checked with an independent modified-nodal-analysis solve
 written here (ideal op-amps as nullors), not with the package's own solver.
@@ -13,8 +13,8 @@ import pytest
 from scipy import signal
 
 from loopcraft.errors import SynthesisError, TopologyError
-from loopcraft.eseries import nearest
-from loopcraft.filters import (
+from loopcraft.parts.eseries import nearest
+from loopcraft.synthesis.filters import (
     FilterStage,
     cascade_stage,
     normalized_sections,
@@ -94,7 +94,7 @@ def fit_second_order(fs: FilterStage, numerator_power: int) -> tuple[float, floa
 
 
 # --- closed forms, written from the references ---------------------------------------------
-# Designators as in the loopcraft.filters module docstring.
+# Designators as in the loopcraft.synthesis.filters module docstring.
 
 
 def closed_sallen_key_lowpass(v):
@@ -631,10 +631,10 @@ def test_filter_error_names_section():
 
 
 def test_stage_dicts_load_as_circuit_stages():
-    # Contract with loopcraft.stage: the synthesized dicts are valid "circuit" stages, and the
+    # Contract with loopcraft.model.stage: the synthesized dicts are valid "circuit" stages, and the
     # package's symbolic solve agrees with the independent nodal solve above (no source).
-    from loopcraft._symbols import S, component_symbol
-    from loopcraft.stage import stage_from_dict
+    from loopcraft.model.stage import stage_from_dict
+    from loopcraft.symbolic.symbols import S, component_symbol
 
     stages = synthesize_filter("butterworth", 3, 1e3, topology="mfb", gain=2.0)
     for stage, values in [(s.stage, s.values) for s in stages] + [cascade_stage(stages)]:

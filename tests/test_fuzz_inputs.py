@@ -28,13 +28,13 @@ import pytest
 from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
-from loopcraft import opamp as opamp_mod
-from loopcraft import plant as plant_mod
 from loopcraft.cli import main
 from loopcraft.design import Design, loads
 from loopcraft.errors import LoopcraftError
-from loopcraft.network import parse_network
-from loopcraft.values import MAX_VALUE, MIN_VALUE, parse_value
+from loopcraft.model import opamp as opamp_mod
+from loopcraft.model import plant as plant_mod
+from loopcraft.model.network import parse_network
+from loopcraft.model.values import MAX_VALUE, MIN_VALUE, parse_value
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "src" / "loopcraft" / "examples"
 BASE: dict[str, Any] = json.loads((EXAMPLES / "bus48_guarded.json").read_text(encoding="utf-8"))

@@ -9,9 +9,7 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from loopcraft.errors import AnalysisError
-from loopcraft.factors import Factor, FactoredNumeric, factors_from_roots
-from loopcraft.margins import (
+from loopcraft.analysis.margins import (
     Crossover,
     GainMargin,
     LoopMargins,
@@ -19,6 +17,8 @@ from loopcraft.margins import (
     loop_margins_factored,
     slope_db_per_decade,
 )
+from loopcraft.errors import AnalysisError
+from loopcraft.numeric.factors import Factor, FactoredNumeric, factors_from_roots
 
 TWO_PI = 2.0 * math.pi
 

@@ -4,9 +4,9 @@ import sympy as sp
 from hypothesis import given
 from hypothesis import strategies as st
 
-from loopcraft._symbols import S, component_symbol
 from loopcraft.errors import ParseError
-from loopcraft.network import Element, Parallel, Series, parse_network
+from loopcraft.model.network import Element, Parallel, Series, parse_network
+from loopcraft.symbolic.symbols import S, component_symbol
 
 
 def test_precedence_parallel_binds_tighter():
@@ -97,7 +97,7 @@ def test_parser_never_crashes(text):
 
 # --------------------------------------------------------------------------- limits on hostile text
 def test_nesting_deeper_than_the_limit_is_a_parse_error_with_a_caret():
-    from loopcraft.network import MAX_NESTING
+    from loopcraft.model.network import MAX_NESTING
 
     text = "(" * 331 + "R1" + ")" * 331  # deep enough to exhaust the recursive parser without the limit
     with pytest.raises(ParseError, match=f"deeper than {MAX_NESTING} levels") as err:
@@ -107,7 +107,7 @@ def test_nesting_deeper_than_the_limit_is_a_parse_error_with_a_caret():
 
 
 def test_more_parts_than_the_limit_is_a_parse_error_naming_the_limit():
-    from loopcraft.network import MAX_PARTS
+    from loopcraft.model.network import MAX_PARTS
 
     ok = "+".join(f"R{i}" for i in range(MAX_PARTS))
     assert len(parse_network(ok).names) == MAX_PARTS
@@ -118,7 +118,7 @@ def test_more_parts_than_the_limit_is_a_parse_error_naming_the_limit():
 
 
 def test_a_series_chain_of_thousands_is_refused_before_any_algebra():
-    from loopcraft.network import MAX_TEXT
+    from loopcraft.model.network import MAX_TEXT
 
     text = " + ".join(f"R{i}" for i in range(3000))
     with pytest.raises(ParseError, match=f"the limit is {MAX_TEXT}"):
@@ -131,9 +131,9 @@ def test_derivation_turns_a_recursion_overflow_into_a_topology_error():
     import inspect
     import sys
 
-    from loopcraft.derivation import derive
     from loopcraft.errors import TopologyError
-    from loopcraft.stage import InvertingStage
+    from loopcraft.model.stage import InvertingStage
+    from loopcraft.symbolic.derivation import derive
 
     deep = "R_d0" + "".join(f" || (R_d{i} + C_d{i}" for i in range(1, 12)) + ")" * 11
     stage = InvertingStage(parse_network("R_in9"), parse_network(deep))

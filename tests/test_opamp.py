@@ -1,4 +1,4 @@
-"""Tests for loopcraft.opamp: open-loop gain models and their design-file form."""
+"""Tests for loopcraft.model.opamp: open-loop gain models and their design-file form."""
 
 from __future__ import annotations
 
@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 
 from loopcraft.errors import AnalysisError, ComponentValueError, DesignFileError
-from loopcraft.opamp import OpAmp, second_pole_for_phase_margin
+from loopcraft.model.opamp import OpAmp, second_pole_for_phase_margin
 
 # Invented parts: a general-purpose 100 dB / 10 MHz amplifier and a slower
 # 90 dB / 1 MHz one, as an error amplifier for a 48 V bus converter might use.
@@ -279,7 +279,7 @@ def test_output_swing_warning() -> None:
 
 
 def test_module_docstring_carries_the_safety_note() -> None:
-    import loopcraft.opamp as mod
+    import loopcraft.model.opamp as mod
 
     assert mod.__doc__ is not None
     assert "hazardous voltages and stored energy" in " ".join(mod.__doc__.split())

@@ -1,4 +1,4 @@
-"""Tests of loopcraft.record: the HTML/Markdown design record, its figures and atomic saving.
+"""Tests of loopcraft.report.record: the HTML/Markdown design record, its figures and atomic saving.
 
 Expected component texts, corner formulas and E-series memberships below are
 written out by hand (Venable 1983 corner formulas; IEC 60063:2015 tables);
@@ -23,7 +23,7 @@ import pytest
 import loopcraft
 from loopcraft.design import Design, load
 from loopcraft.errors import LoopcraftError
-from loopcraft.record import DesignRecord, record, spread_header
+from loopcraft.report.record import DesignRecord, record, spread_header
 from loopcraft.synthesis import filter_design
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "src" / "loopcraft" / "examples"

@@ -5,7 +5,7 @@ import pytest
 import sympy as sp
 
 from loopcraft import Design, topology
-from loopcraft._symbols import S, component_symbol
+from loopcraft.symbolic.symbols import S, component_symbol
 
 
 def inv(zi, zf, **values):

@@ -1,4 +1,4 @@
-"""Tests of loopcraft.snapping against the IEC 60063 tables and closed-form corners.
+"""Tests of loopcraft.parts.snapping against the IEC 60063 tables and closed-form corners.
 
 Every expected standard value below was read off the IEC 60063:2015 tables by
 hand (neighbours and their geometric mean noted beside each check); every
@@ -18,8 +18,8 @@ from scipy.optimize import brentq
 
 from loopcraft.design import Design, load
 from loopcraft.errors import ComponentValueError
-from loopcraft.snapping import SnapResult, engineering_text, snap_design
-from loopcraft.values import parse_value
+from loopcraft.model.values import parse_value
+from loopcraft.parts.snapping import SnapResult, engineering_text, snap_design
 
 EXAMPLES = Path(__file__).resolve().parents[1] / "src" / "loopcraft" / "examples"
 TWO_PI = 2.0 * math.pi

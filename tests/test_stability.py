@@ -17,10 +17,10 @@ import numpy as np
 import pytest
 
 import loopcraft as lc
+from loopcraft.analysis.margins import loop_margins_factored
+from loopcraft.analysis.stability import closed_loop_stability, gain_range
 from loopcraft.cli import main
-from loopcraft.factors import Factor, FactoredNumeric
-from loopcraft.margins import loop_margins_factored
-from loopcraft.stability import closed_loop_stability, gain_range
+from loopcraft.numeric.factors import Factor, FactoredNumeric, factored_from_tf
 
 W = 2.0 * math.pi
 
@@ -95,7 +95,7 @@ def test_textbook_polynomials_as_loops(coeffs):
     n_desc = c - d_desc  # N: degree n-2 remainder
     num = n_desc[2:]
     # L = N/D in factored form
-    fn = lc.factors.factored_from_tf(num, d_desc[: 2])
+    fn = factored_from_tf(num, d_desc[: 2])
     fn = FactoredNumeric(fn.gain, fn.origin_order - (n - 1), fn.factors)
     st = closed_loop_stability(fn)
     assert st.closed_loop_rhp_poles == routh_rhp_count(list(c))

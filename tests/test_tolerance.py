@@ -9,8 +9,7 @@ import scipy.signal as sig
 
 import loopcraft as lc
 from conftest import EXAMPLES
-from loopcraft.errors import AnalysisError, DesignFileError
-from loopcraft.tolerance import (
+from loopcraft.analysis.tolerance import (
     evaluate_batch,
     monte_carlo,
     parse_tolerances,
@@ -18,6 +17,7 @@ from loopcraft.tolerance import (
     validate_tolerances,
     worst_case,
 )
+from loopcraft.errors import AnalysisError, DesignFileError
 
 
 def rc_design(tol, r1="10k", r2="10k", c1="10n"):
@@ -147,7 +147,7 @@ def test_vectorized_matches_scalar_path_and_scipy():
         _, a = sig.freqs_zpk([], [-wa, -w2], op.a0 * wa * w2, worN=w)
         h_act = h * a / (a + 1 - h)
         np.testing.assert_allclose(b.stage[n], h_act, rtol=1e-9)
-        # Loop: L = P·k_fb·(-H_act) (loopcraft.loop sign convention).
+        # Loop: L = P·k_fb·(-H_act) (loopcraft.analysis.loop sign convention).
         np.testing.assert_allclose(b.loop[n], -d.plant.response(f) * d.feedback_gain * h_act, rtol=1e-9)
         # The scalar fast path, sample by sample.
         dd = d.with_values(v).with_sections(opamp=replace(op, gbw_hz=float(gbw[n])))
@@ -656,7 +656,7 @@ def test_closed_loop_root_count_matches_numpy_roots_and_routh(case):
         dd = d.with_values(v)
         if "gbw_hz" in sp.values:
             dd = dd.with_sections(opamp=replace(d.opamp, gbw_hz=float(sp.values["gbw_hz"][i])))
-        # The scalar path: L/(1 + L) of loopcraft.loop, denominator D + N in descending powers.
+        # The scalar path: L/(1 + L) of loopcraft.analysis.loop, denominator D + N in descending powers.
         _num, den = dd.analyze().loop.closed_loop_tf()
         r = np.roots(den)
         by_roots = int(np.sum(r.real >= -1e-9 * np.abs(r)))

@@ -5,7 +5,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from loopcraft.errors import ComponentValueError
-from loopcraft.values import format_value, parse_value
+from loopcraft.model.values import format_value, parse_value
 
 # SI prefixes: BIPM, "The International System of Units (SI)", 9th ed., 2019, table 7.
 # Letter-for-decimal codes: IEC 60062:2016, "Marking codes for resistors and capacitors", clause 4.

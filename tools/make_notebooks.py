@@ -101,7 +101,7 @@ fixes it. Scenario: the rate output of an invented vibration sensor.
     code("""
 import numpy as np
 import loopcraft as lc
-from loopcraft.opamp import OpAmp
+from loopcraft.model.opamp import OpAmp
 
 amp = OpAmp.from_dict({"model": "single_pole", "a0_db": 100, "gbw_hz": "1M"})
 integrator = lc.topology("integrator").design().with_sections(opamp=amp)
@@ -131,7 +131,7 @@ open-loop gain: the rate of closure drops to about 20 dB/decade and the margin c
 The step responses of the amplifier loops show the difference:
 """),
     code("""
-from loopcraft.loop import PlantLoop
+from loopcraft.analysis.loop import PlantLoop
 
 def overshoot(amp_loop):
     lp = PlantLoop(amp_loop.loop, amp_loop.margins)
@@ -175,7 +175,7 @@ nominal values and the yield over a seeded Monte Carlo run with the stated toler
 `loopcraft check bus48_guarded.json` does in a CI job (exit status 0 when the spec holds).
 """),
     code("""
-from loopcraft.spec import check
+from loopcraft.checks.spec import check
 
 report = check(design, seed=1)
 print(report)
@@ -199,7 +199,7 @@ licensed practice before relying on a design.
     code("""
 import numpy as np
 import loopcraft as lc
-from loopcraft.opamp import OpAmp
+from loopcraft.model.opamp import OpAmp
 from loopcraft.plant import plant_from_dict
 from loopcraft.synthesis import compensator_design
 
@@ -239,7 +239,7 @@ print(f"step overshoot {y.max() / y[-1] - 1:.1%}")
     code("lc.Explorer(built)"),
     md("## 5. Production spread: 1 % resistors, 5 % capacitors, ±30 % GBW"),
     code("""
-from loopcraft.tolerance import monte_carlo
+from loopcraft.analysis.tolerance import monte_carlo
 
 guarded = built.with_sections(
     tolerances={"R*": "1%", "C*": "5%", "gbw": "30%"},
@@ -252,7 +252,7 @@ print({k: summary[k] for k in list(summary)[:6]})
 """),
     md("## 6. Check against the spec and record the decision"),
     code("""
-from loopcraft.spec import check
+from loopcraft.checks.spec import check
 
 report = check(guarded, seed=1)
 print(report)
@@ -279,7 +279,7 @@ low-pass at 1 kHz keeps aliasing down. Two unity-gain Sallen-Key sections with E
 import numpy as np
 import scipy.signal as sig
 import loopcraft as lc
-from loopcraft.filters import normalized_sections
+from loopcraft.synthesis.filters import normalized_sections
 from loopcraft.synthesis import filter_design, section_design
 
 for s in normalized_sections("butterworth", 4):

@@ -11,6 +11,12 @@ The public API::
 
 from __future__ import annotations
 
+# ``from loopcraft.plant import …`` is public API from before the layered layout; the
+# module lives in the model layer now and answers to its old name too.
+import sys as _sys
+
+from ._version import __version__
+from .analysis.stability import Stability, closed_loop_stability
 from .design import FORMAT_VERSION, Design, load, loads
 from .errors import (
     AnalysisError,
@@ -22,16 +28,17 @@ from .errors import (
     SynthesisError,
     TopologyError,
 )
-from .evaluator import Evaluator, TransferResult
-from .factored import FactoredForm
-from .factors import Factor, FactoredNumeric
-from .network import Network, parse_network
-from .stability import Stability, closed_loop_stability
-from .stage import CircuitStage, InvertingStage, NonInvertingStage, stage_from_dict
+from .model import plant as _plant
+from .model.network import Network, parse_network
+from .model.stage import CircuitStage, InvertingStage, NonInvertingStage, stage_from_dict
+from .model.values import format_value, parse_value
+from .numeric.evaluator import Evaluator, TransferResult
+from .numeric.factored import FactoredForm
+from .numeric.factors import Factor, FactoredNumeric
 from .topologies import TOPOLOGIES, topology, topology_names
-from .values import format_value, parse_value
 
-__version__ = "0.1.0"
+_sys.modules.setdefault(__name__ + ".plant", _plant)
+plant = _plant
 
 
 def __getattr__(name: str):

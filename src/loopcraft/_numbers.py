@@ -27,49 +27,12 @@ from typing import Any
 
 import numpy as np
 
+from ._scalars import MAX_NUMBER_TEXT, real_float, shown
 from .errors import ComponentValueError, DesignFileError
 
 __all__ = ["real_float", "shown", "read_number", "Span", "json_safe", "MAX_NUMBER_TEXT"]
 
-#: Longest text read as one number (characters); a value is never longer than a few dozen.
-MAX_NUMBER_TEXT = 64
-
-# A plain decimal number: optional sign, digits with an optional point, optional exponent.
 _PLAIN = re.compile(r"[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?")
-
-
-def real_float(value: Real) -> float:
-    """The float nearest a real number; ``±inf`` (never OverflowError) beyond the float range.
-
-    Parameters
-    ----------
-    value : int, float, Fraction, numpy scalar …
-        Any :class:`numbers.Real` (booleans are the caller's business).
-    """
-    try:
-        return float(value)
-    except OverflowError:
-        return math.inf if value > 0 else -math.inf
-
-
-def shown(value: Any, limit: int = 40) -> str:
-    """A short ``repr`` of ``value`` for an error message.
-
-    A big integer is described by its size (its ``repr`` may not even exist:
-    Python refuses to print integers of more than 4300 digits), a long text or
-    container is cut with ``…`` and its length given.
-    """
-    if isinstance(value, int) and not isinstance(value, bool) and value.bit_length() > 128:
-        digits = int(value.bit_length() * math.log10(2)) + 1
-        return f"<{'a negative' if value < 0 else 'an'} integer of about {digits} digits>"
-    try:
-        text = repr(value)
-    except (ValueError, RecursionError):
-        return f"a {type(value).__name__}"
-    if len(text) <= limit:
-        return text
-    size = f" ({len(value)} characters)" if isinstance(value, str) else ""
-    return f"{text[:limit]}…{size}"
 
 
 def read_number(
@@ -96,7 +59,7 @@ def read_number(
         ``"V/[uµμ]s"``); it is stripped before the number is read.
     kind : {"resistor", "capacitor", "inductor"} or None
         For Ω, F and H: the text keeps its unit and
-        :func:`loopcraft.values.parse_value` checks it fits.
+        :func:`loopcraft.model.values.parse_value` checks it fits.
     signed : bool
         Whether text may start with ``-`` before an SI-prefixed number
         (plain numbers may always carry a sign).
@@ -114,7 +77,7 @@ def read_number(
         integers beyond the float range, about 1.8e308); the message names
         ``name`` and the key path is ``where``.
     """
-    from .values import parse_value
+    from .model.values import parse_value
 
     if isinstance(value, bool) or not isinstance(value, Real | str):
         raise DesignFileError(
@@ -150,7 +113,7 @@ def read_number(
 
 
 def _engineering(x: float, unit: str) -> str:
-    from .values import format_value
+    from .model.values import format_value
 
     if unit in ("", "dB", "°") or "/" in unit or not 1e-18 <= x < 1e13:
         return f"{x:g}" + (f" {unit}" if unit else "")

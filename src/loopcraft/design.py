@@ -11,9 +11,10 @@ A design file is JSON of loopcraft's own, versioned form::
 Optional sections: ``opamp``, ``plant``, ``feedback_gain`` (a number in
 1e-6 … 1e6 V/V), ``stage_sign`` (-1 or 1: the stage's sign in the loop gain
 L = stage_sign·P·k_fb·H, for an error amplifier wired other than the default rule
-of :mod:`loopcraft.loop`), ``tolerances``, ``spec``. Loading validates every key and never executes anything; errors
-carry the key path. Saving is atomic (temporary file, then rename) and keeps an
-overwritten file's permission bits; a symbolic link is followed (see :meth:`Design.save`).
+of :mod:`loopcraft.analysis.loop`), ``tolerances``, ``spec``. Loading validates
+every key and never executes anything; errors carry the key path. Saving is
+atomic (temporary file, then rename) and keeps an overwritten file's permission
+bits; a symbolic link is followed (see :meth:`Design.save`).
 
 Design-file text may nest arrays and objects at most 32 deep (a real file
 nests 4) and hold no number longer than 1000 characters; beyond either it is
@@ -35,14 +36,14 @@ from typing import Any
 
 from ._files import atomic_write
 from ._numbers import Span, shown
-from ._symbols import element_kind
 from ._text import check_text
-from .derivation import Derivation, derive
 from .errors import ComponentValueError, DesignFileError, LoopcraftError
-from .evaluator import Evaluator, TransferResult, compile_derivation
-from .factored import FactoredForm
-from .stage import Stage, stage_from_dict
-from .values import parse_value
+from .model.stage import Stage, stage_from_dict
+from .model.values import parse_value
+from .numeric.evaluator import Evaluator, TransferResult, compile_derivation
+from .numeric.factored import FactoredForm
+from .symbolic.derivation import Derivation, derive
+from .symbolic.symbols import element_kind
 
 __all__ = ["Design", "load", "loads", "FORMAT_VERSION"]
 
@@ -133,7 +134,7 @@ class Design:
         ``stage_sign`` when the file states it, else -1 for inverting and circuit
         stages and +1 for non-inverting ones.
         """
-        from .loop import loop_sign
+        from .analysis.loop import loop_sign
 
         return int(loop_sign(self.stage.kind, self.stage_sign))
 
@@ -173,11 +174,11 @@ class Design:
         values, given = _parse_values(d["values"], stage)
         opamp = plant = None
         if "opamp" in d:
-            from .opamp import OpAmp
+            from .model.opamp import OpAmp
 
             opamp = _wrap(lambda: OpAmp.from_dict(d["opamp"], "opamp"), "opamp")
         if "plant" in d:
-            from .plant import plant_from_dict
+            from .model.plant import plant_from_dict
 
             plant = _wrap(lambda: plant_from_dict(d["plant"], "plant"), "plant")
         fb = d.get("feedback_gain", 1.0)
@@ -193,11 +194,11 @@ class Design:
         tol = d.get("tolerances")
         spec = d.get("spec")
         if tol is not None:
-            from .tolerance import validate_tolerances
+            from .analysis.tolerance import validate_tolerances
 
             validate_tolerances(tol, stage.component_names, "tolerances")
         if spec is not None:
-            from .spec import validate_spec
+            from .model.spec_section import validate_spec
 
             validate_spec(spec, "spec")
         return cls(stage, values, given, d.get("title", ""), d.get("notes", ""), opamp, plant, float(fb), tol, spec, ss)
@@ -322,26 +323,26 @@ class Design:
         Analysis
             See :class:`loopcraft.analysis.Analysis`.
         """
-        from .analysis import Analyzer
+        from .analysis.analyzer import Analyzer
 
         return Analyzer(self, f_hz).update()
 
     def asymptote_error(self, f_hz=None):
         """Worst error of the straight-line Bode against the exact curve (dB, degrees, where)."""
-        from .asymptote import asymptote_error
+        from .numeric.asymptote import asymptote_error
 
         a = self.analyze(f_hz)
         return asymptote_error(a.factored, a.f_hz)
 
     def actual(self):
-        """The stage with its real op-amp (:class:`loopcraft.amplifier.ActualStage`).
+        """The stage with its real op-amp (:class:`loopcraft.analysis.amplifier.ActualStage`).
 
         Raises
         ------
         AnalysisError
             No op-amp, or an ideal one, is given.
         """
-        from .amplifier import actual_stage
+        from .analysis.amplifier import actual_stage
         from .errors import AnalysisError
 
         if self.opamp is None or self.opamp.is_ideal:
@@ -381,7 +382,7 @@ class Design:
         return self.opamp.large_signal_warnings(abs(h) * input_amplitude_v, float(f_hz))
 
     def loop(self):
-        """The loop around the plant (:class:`loopcraft.loop.PlantLoop`), with the real op-amp when given.
+        """The loop around the plant (:class:`loopcraft.analysis.loop.PlantLoop`), with the real op-amp when given.
 
         Raises
         ------
@@ -402,39 +403,39 @@ class Design:
         notes : str
             The decision in words, shown in the record.
         **kw
-            Passed to :func:`loopcraft.record.record` (``series``, ``spread``, ``seed``, ``samples``).
+            Passed to :func:`loopcraft.report.record.record` (``series``, ``spread``, ``seed``, ``samples``).
         """
-        from .record import record
+        from .report.record import record
 
         return record(self, notes, **kw)
 
     def snap(self, series: str = "E24", **kw: Any):
-        """Snap R and C to an IEC 60063 series; see :func:`loopcraft.snapping.snap_design`."""
-        from .snapping import snap_design
+        """Snap R and C to an IEC 60063 series; see :func:`loopcraft.parts.snapping.snap_design`."""
+        from .parts.snapping import snap_design
 
         return snap_design(self, series, **kw)
 
     def spread(self, samples: int = 10000, *, seed: int = 1, **kw: Any):
-        """Monte Carlo spread over the ``tolerances`` section; see :func:`loopcraft.tolerance.monte_carlo`."""
-        from .tolerance import monte_carlo
+        """Monte Carlo spread over the ``tolerances`` section; see :func:`loopcraft.analysis.tolerance.monte_carlo`."""
+        from .analysis.tolerance import monte_carlo
 
         return monte_carlo(self, samples, seed=seed, **kw)
 
     def worst_case(self, **kw: Any):
-        """Worst-case corner search over the tolerances; see :func:`loopcraft.tolerance.worst_case`."""
-        from .tolerance import worst_case
+        """Worst-case corner search over the tolerances; see :func:`loopcraft.analysis.tolerance.worst_case`."""
+        from .analysis.tolerance import worst_case
 
         return worst_case(self, **kw)
 
     def check(self, *, spread: bool = True, seed: int = 1):
-        """Check the design against its ``spec`` section; see :func:`loopcraft.spec.check`."""
-        from .spec import check
+        """Check the design against its ``spec`` section; see :func:`loopcraft.checks.spec.check`."""
+        from .checks.spec import check
 
         return check(self, spread=spread, seed=seed)
 
     def sensitivity(self):
-        """Normalized sensitivities ∂ln(corner)/∂ln(component); see :mod:`loopcraft.sensitivity`."""
-        from .sensitivity import sensitivity
+        """Normalized sensitivities ∂ln(corner)/∂ln(component); see :mod:`loopcraft.analysis.sensitivity`."""
+        from .analysis.sensitivity import sensitivity
 
         return sensitivity(self)
 

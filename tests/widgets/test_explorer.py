@@ -459,7 +459,7 @@ def test_plant_panel_list_error_then_loop() -> None:
     p.feedback.text.value = "0.5"
     assert ex.design.feedback_gain == 0.5 and ex.design.plant is not None
     vs = ex.view_state()
-    # Loop gain L = P·k·(-H) for an inverting stage (loopcraft.loop convention); P = 10/(1 + s/ωp).
+    # Loop gain L = P·k·(-H) for an inverting stage (loopcraft.analysis.loop convention); P = 10/(1 + s/ωp).
     s = 2j * np.pi * ex.f_hz
     plant = 10 / (1 + s / (2 * np.pi * 1e3))
     h = ex.design.transfer().response(ex.f_hz)
@@ -554,7 +554,7 @@ def test_dragged_part_highlights_the_corners_it_moves() -> None:
 
 
 def _lines(ex):
-    from loopcraft.factored import FactoredForm
+    from loopcraft.numeric.factored import FactoredForm
     from loopcraft.widgets._formula import corner_lines
 
     return corner_lines(FactoredForm(ex.design.derivation, ex.design.transfer()))

@@ -15,8 +15,8 @@ import math
 
 import numpy as np
 
-from ..factors import FactoredNumeric
-from ..values import format_value
+from ..model.values import format_value
+from ..numeric.factors import FactoredNumeric
 
 __all__ = [
     "GRID_POINTS",

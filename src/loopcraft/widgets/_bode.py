@@ -15,7 +15,7 @@ Marks (each updated with one message per slider move):
 :meth:`BodeView.draw` then assigns it, each mark inside its own
 ``hold_sync()``. Loop-gain conventions (phase margin ``180° + ∠L`` at
 ``|L| = 1``, gain margin ``-20·log10|L|`` where ``∠L = -180°``) are those of
-:mod:`loopcraft.loop`.
+:mod:`loopcraft.analysis.loop`.
 """
 
 from __future__ import annotations
@@ -29,12 +29,12 @@ import bqplot as bq
 import ipywidgets as widgets
 import numpy as np
 
-from ..amplifier import AmplifierLoop
-from ..analysis import Analysis
-from ..asymptote import asymptote_mag_db, exact_phase_deg
-from ..factors import FactoredNumeric
-from ..margins import loop_branch_offset_deg
-from ..values import format_value
+from ..analysis.amplifier import AmplifierLoop
+from ..analysis.analyzer import Analysis
+from ..analysis.margins import loop_branch_offset_deg
+from ..model.values import format_value
+from ..numeric.asymptote import asymptote_mag_db, exact_phase_deg
+from ..numeric.factors import FactoredNumeric
 from ._axes import clamp_log, decade_ticks, keep_or_fit, linear_ticks
 from ._sync import TraitWriter
 from ._theme import AXIS_TICK_STYLE, COLORS, CSS_CLASS, FIGURE_MARGIN

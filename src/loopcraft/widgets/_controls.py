@@ -2,7 +2,7 @@
 
 The slider is the single source of truth for a component's value (SI base
 units: ohms, farads, henries). Typing in the entry parses the text with
-:func:`~loopcraft.values.parse_value` and moves the slider; the explorer's one
+:func:`~loopcraft.model.values.parse_value` and moves the slider; the explorer's one
 observer on the slider then redraws everything and calls
 :meth:`ComponentControl.show_value`, which rewrites the entry under a guard so
 the entry and the slider never bounce updates back and forth.
@@ -11,7 +11,7 @@ Slider ranges span about two decades either side of the value, rounded out to
 whole decades and clipped to what is plausible for the part's kind
 (:data:`PLAUSIBLE_DECADES`). With an E-series chosen the slider's validator
 snaps every value to the nearest standard value (IEC 60063, via
-:func:`loopcraft.eseries.nearest`) and its key step becomes one series step.
+:func:`loopcraft.parts.eseries.nearest`) and its key step becomes one series step.
 """
 
 from __future__ import annotations
@@ -26,10 +26,10 @@ from types import MappingProxyType
 import ipywidgets as widgets
 from traitlets import Unicode, validate
 
-from .._symbols import element_kind
 from ..errors import ComponentValueError, LoopcraftError
-from ..eseries import nearest, neighbours, series_of
-from ..values import format_value, parse_value, unit_for
+from ..model.values import format_value, parse_value, unit_for
+from ..parts.eseries import nearest, neighbours, series_of
+from ..symbolic.symbols import element_kind
 from ._fields import ErrorNote
 from ._theme import COLORS, CSS_CLASS
 
@@ -105,7 +105,7 @@ def compact_text(value: float) -> str:
     Returns
     -------
     str
-        Text that :func:`~loopcraft.values.parse_value` reads back to ``value``
+        Text that :func:`~loopcraft.model.values.parse_value` reads back to ``value``
         within four significant digits.
     """
     return format_value(value, "", digits=4).replace(" ", "")

@@ -2,7 +2,7 @@
 
 An error is shown beside the field it belongs to, in a ``<pre>`` block so the
 caret line of a :class:`~loopcraft.errors.ParseError` (or of a value that
-:func:`~loopcraft.values.parse_value` rejects) stays under the offending
+:func:`~loopcraft.model.values.parse_value` rejects) stays under the offending
 character. Clearing the note hides it; the field keeps whatever the user typed.
 """
 

@@ -7,12 +7,12 @@ The symbolic form
     H(s) = K \, s^{n} \, \frac{\prod (1 + s/\omega_z) \cdots}{\prod (1 + s/\omega_p) \cdots}
 
 is typeset once per topology (an ``HTMLMath`` widget, MathJax delimiters as
-in :meth:`loopcraft.factored.FactoredForm._repr_html_`); the table below it
+in :meth:`loopcraft.numeric.factored.FactoredForm._repr_html_`); the table below it
 gives each corner's formula and its value at the current component values
 and is rebuilt only when its text changes. Corners are numbered as the
 factored form numbers them (zeros then poles, each by increasing frequency:
 ωz1, ωp1, ω0p1 with Qp1). The rows that the component being dragged moves,
-by :meth:`loopcraft.sensitivity.Sensitivity.moved_by`, are highlighted.
+by :meth:`loopcraft.analysis.sensitivity.Sensitivity.moved_by`, are highlighted.
 
 A zero and a pole that cancel at the current values are left out of the
 table (the other rows keep their numbers) and named below it: "pole-zero
@@ -29,12 +29,12 @@ from dataclasses import dataclass
 
 import ipywidgets as widgets
 
-from ..derivation import Derivation
+from ..analysis.sensitivity import Sensitivity
 from ..errors import AnalysisError
-from ..evaluator import TransferResult
-from ..factored import CornerRow, FactoredForm
-from ..sensitivity import Sensitivity
-from ..values import format_value
+from ..model.values import format_value
+from ..numeric.evaluator import TransferResult
+from ..numeric.factored import CornerRow, FactoredForm
+from ..symbolic.derivation import Derivation
 from ._theme import COLORS, CSS_CLASS, FONT_STACK
 
 __all__ = ["CornerLine", "corner_lines", "highlighted_labels", "FormulaView"]

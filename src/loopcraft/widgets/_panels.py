@@ -2,7 +2,7 @@
 
 Each editor holds text fields named after the design-file keys of its
 section, builds the section dict from them and validates it through the
-model's own reader (:meth:`loopcraft.opamp.OpAmp.from_dict`,
+model's own reader (:meth:`loopcraft.model.opamp.OpAmp.from_dict`,
 :func:`loopcraft.plant.plant_from_dict`). A :class:`~loopcraft.errors.DesignFileError`
 is shown beside the field its key path names (``"plant.poles_hz[1]"`` → the
 ``poles_hz`` field); any other error, from the reader or from the explorer
@@ -22,8 +22,8 @@ from typing import Any
 import ipywidgets as widgets
 
 from ..errors import DesignFileError
-from ..opamp import OpAmp
-from ..plant import Plant, plant_from_dict
+from ..model.opamp import OpAmp
+from ..model.plant import Plant, plant_from_dict
 from ._controls import compact_text, failure_text
 from ._fields import ErrorNote, TextField
 from ._theme import COLORS
@@ -116,7 +116,7 @@ class OpAmpPanel:
     opamp : OpAmp or None
         The initial model (None: ideal).
     on_change : callable
-        Called with the new :class:`~loopcraft.opamp.OpAmp` (None for ideal)
+        Called with the new :class:`~loopcraft.model.opamp.OpAmp` (None for ideal)
         each time the fields form a valid model.
 
     Attributes

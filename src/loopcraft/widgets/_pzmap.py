@@ -18,11 +18,11 @@ values; the axis labels say the scale is signed-log.
 
 Coincident roots are drawn once with their multiplicity written beside the
 marker. A zero and a pole that cancel at the current values (see
-:func:`loopcraft.factors.cancel_roots`) are not drawn as × and ○ but as one
+:func:`loopcraft.numeric.factors.cancel_roots`) are not drawn as × and ○ but as one
 hollow diamond in their own colour, with a legend entry and a hover note; the
 × and ○ are the reduced transfer function. Hovering a marker shows the root, its ω0 and Q, and the components
 that set it: those whose normalized sensitivity ``|∂ln ω/∂ln x|`` exceeds
-0.05 (see :mod:`loopcraft.sensitivity`).
+0.05 (see :mod:`loopcraft.analysis.sensitivity`).
 """
 
 from __future__ import annotations
@@ -36,10 +36,10 @@ import bqplot as bq
 import ipywidgets as widgets
 import numpy as np
 
-from ..analysis import Analysis
-from ..factors import CANCEL_REL_TOL, JW_AXIS_REL_TOL
-from ..sensitivity import CornerSensitivity, Sensitivity
-from ..values import format_value
+from ..analysis.analyzer import Analysis
+from ..analysis.sensitivity import CornerSensitivity, Sensitivity
+from ..model.values import format_value
+from ..numeric.factors import CANCEL_REL_TOL, JW_AXIS_REL_TOL
 from ._sync import TraitWriter
 from ._theme import AXIS_TICK_STYLE, COLORS, CSS_CLASS, PZ_MARGIN
 

@@ -1,7 +1,7 @@
 """Where a design comes from besides the library: a network you type, or a design file.
 
 * :class:`NetworkForm` reads Zi and Zf (or Zg and Zf for a non-inverting
-  stage) in loopcraft's expression grammar (:func:`loopcraft.network.parse_network`),
+  stage) in loopcraft's expression grammar (:func:`loopcraft.model.network.parse_network`),
   gives every element a default value for its kind (:data:`DEFAULT_VALUES`)
   and builds the design with :meth:`loopcraft.design.Design.from_dict`. A
   :class:`~loopcraft.errors.ParseError` is shown beside its field with the
@@ -23,10 +23,10 @@ from typing import Any
 
 import ipywidgets as widgets
 
-from .._symbols import element_kind
 from ..design import Design, load, loads
 from ..errors import DesignFileError, LoopcraftError, ParseError
-from ..network import parse_network
+from ..model.network import parse_network
+from ..symbolic.symbols import element_kind
 from ._controls import failure_text
 from ._fields import ErrorNote, TextField
 from ._theme import COLORS

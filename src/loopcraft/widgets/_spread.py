@@ -1,6 +1,6 @@
 """The tolerance overlay: envelope bands on the Bode figures and root clouds on the s-plane.
 
-The spread is a seeded Monte Carlo run (:func:`loopcraft.tolerance.monte_carlo`)
+The spread is a seeded Monte Carlo run (:func:`loopcraft.analysis.tolerance.monte_carlo`)
 over the design's own ``tolerances`` section or a stock choice. It is not on
 the slider path: the explorer refreshes it when the overlay is switched on,
 when the design changes, and once a slider has come to rest.
@@ -17,9 +17,9 @@ import bqplot as bq
 import ipywidgets as widgets
 import numpy as np
 
+from ..analysis.tolerance import monte_carlo
 from ..design import Design
 from ..errors import LoopcraftError
-from ..tolerance import monte_carlo
 from ._pzmap import PoleZeroView, signed_log
 from ._sync import TraitWriter
 from ._theme import COLORS

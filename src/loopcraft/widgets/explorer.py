@@ -34,13 +34,13 @@ from typing import Any
 import ipywidgets as widgets
 import numpy as np
 
-from ..amplifier import AmplifierLoop
-from ..analysis import Analysis, Analyzer
+from ..analysis.amplifier import AmplifierLoop
+from ..analysis.analyzer import Analysis, Analyzer
+from ..analysis.sensitivity import Sensitivity, sensitivity
 from ..design import Design, load
 from ..errors import AnalysisError, ComponentValueError, LoopcraftError, TopologyError
-from ..opamp import OpAmp
-from ..plant import Plant
-from ..sensitivity import Sensitivity, sensitivity
+from ..model.opamp import OpAmp
+from ..model.plant import Plant
 from ..topologies import TOPOLOGIES, topology
 from ._axes import view_grid_hz
 from ._bode import BodeView

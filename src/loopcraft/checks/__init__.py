@@ -1,0 +1,1 @@
+"""Checks of a design against its ``spec`` section (``spec``), stability first."""
