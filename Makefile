@@ -21,7 +21,10 @@ ROOT_FLAG := $(if $(filter 0,$(shell id -u)),--allow-root,)
 lab: venv
 	$(BIN)/jupyter lab $(ROOT_FLAG) notebooks/quickstart.ipynb
 
+# Type check (the layers listed under [tool.mypy] in pyproject.toml) and lint first; either failing fails the target.
 test: venv
+	$(BIN)/python -m mypy
+	$(BIN)/ruff check src tests benchmarks tools
 	$(BIN)/python -m pytest
 
 # Refresh the README screenshot (docs/explorer.png) from the real-browser test.

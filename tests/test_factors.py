@@ -111,10 +111,12 @@ def test_twin_t_factored_text_html_latex_say_cancellation_and_infinite_q():
     assert "e+1" not in text  # no 1e15 / 1e16 stand-in for Q
     assert "pole-zero cancellation at 60.06 Hz at these values" in ff._repr_html_()
     assert r"\text{pole-zero cancellation at 60.06 Hz at these values}" in ff._repr_latex_()
-    # Rows keep the full form's numbering: the cancelled ωz1 and ωp2 are left out.
+    # Rows keep their labels: the cancelled ωz1 and ωp2 are left out. The cubic numerator's
+    # real root and pair are numbered in their own sequences (ωz…, ω0z…), the three real
+    # poles of the cubic denominator by frequency within it (numeric roots; corner_labels).
     shown = [name for _t, name, _f, _v in ff._corner_lines()]
-    assert shown == ["ω0z2", "ωp1", "ωp3"]
-    assert sum(c.cancelled for c in ff.corners) == 2
+    assert shown == ["ω0z1", "ωp1", "ωp3"]
+    assert [c.label for c in ff.corners if c.cancelled] == ["ωz1", "ωp2"]
     assert ff.to_dict()["cancellations"] == ["pole-zero cancellation at 60.06 Hz at these values"]
     rows = ff.to_dict()["factors"]
     assert len(rows) == 3
@@ -301,3 +303,95 @@ def test_form_cancellation_note_for_a_type3_coincidence():
     kept = {c.formula for c in ff.reduced_corners}
     assert kept == {"1/(C3·(R1 + R3))", "(C1 + C2)/(C1·C2·R2)"}
     assert any(n.startswith("pole-zero cancellation at 1.064 kHz") for n in ff.cancellation_notes)
+
+
+# -- corner labels: fixed per topology by the formula, not by frequency rank -------------------------
+
+
+def venable_type3(v: dict[str, float]) -> dict[str, tuple[str, float]]:
+    """Label → (formula, ω rad/s) of the Type III amplifier.
+
+    Corner formulas from Venable, "The K Factor: A New Mathematical Tool for Stability Analysis
+    and Synthesis", 1983 (written from memory): zeros 1/(R2·C1) and 1/((R1 + R3)·C3), poles
+    (C1 + C2)/(R2·C1·C2) and 1/(R3·C3). The numbers are the documented rule of corner_labels
+    (designators of the lowest-numbered parts first).
+    """
+    return {
+        "ωz1": ("1/(C1·R2)", 1 / (v["R2"] * v["C1"])),
+        "ωz2": ("1/(C3·(R1 + R3))", 1 / ((v["R1"] + v["R3"]) * v["C3"])),
+        "ωp1": ("(C1 + C2)/(C1·C2·R2)", (v["C1"] + v["C2"]) / (v["R2"] * v["C1"] * v["C2"])),
+        "ωp2": ("1/(C3·R3)", 1 / (v["R3"] * v["C3"])),
+    }
+
+
+def test_type3_labels_follow_their_formulas_while_r2_sweeps_5k_to_500k():
+    from loopcraft import topology
+
+    base = topology("type3").design()
+    ranks = set()
+    for r2 in np.geomspace(5e3, 500e3, 41):
+        d = base.with_values(R2=float(r2))
+        ff = d.factored()
+        want = venable_type3(d.values)
+        got = {c.label: c for c in ff.corners}
+        assert set(got) == set(want)
+        for label, (formula, w) in want.items():
+            assert got[label].formula == formula, (r2, label)
+            assert got[label].omega_rad_s == pytest.approx(w, rel=1e-12)
+        # The rows keep their place in the table and in the text.
+        assert [c.label for c in ff.corners] == ["ωz1", "ωz2", "ωp1", "ωp2"]
+        assert [line[1] for line in ff._corner_lines()] == ["ωz1", "ωz2", "ωp1", "ωp2"]
+        ranks.add(tuple(sorted(got, key=lambda k: (k[1], got[k].omega_rad_s))))
+    # Not vacuous: over the sweep 1/(C1·R2) crosses 1/(C3·(R1 + R3)), and (C1 + C2)/(C1·C2·R2)
+    # crosses 1/(C3·R3), so ranking by frequency would have renumbered both.
+    assert len({r[:2] for r in ranks}) == 2 and len({r[2:] for r in ranks}) == 2
+
+
+def test_type3_labels_agree_with_the_closed_forms_at_two_value_sets():
+    # The library demo values and the k-factor example (poles 177 kHz / 182 kHz in the other order).
+    from conftest import EXAMPLES
+    from loopcraft import load, topology
+
+    for d in (topology("type3").design(), load(EXAMPLES / "bus48_loop.json")):
+        rows = {c.label: c for c in d.factored().corners}
+        for label, (formula, w) in venable_type3(d.values).items():
+            assert rows[label].formula == formula and rows[label].omega_rad_s == pytest.approx(w, rel=1e-12)
+        assert rows["ωz1"].to_dict()["label"] == "ωz1"
+
+
+def test_cancelled_type3_corners_keep_their_labels():
+    # R2·C1 = R3·C3: the zero 1/(R2·C1) cancels the pole 1/(R3·C3) (Venable 1983 formulas).
+    d = Design.from_dict(
+        {"loopcraft": 1, "stage": {"kind": "inverting", "input": "R1 || (R3 + C3)", "feedback": "(R2 + C1) || C2"},
+         "values": {"R1": 10e3, "R2": 22e3, "R3": 1e3, "C1": 6.8e-9, "C2": 150e-12, "C3": 149.6e-9}}
+    )
+    ff = d.factored()
+    cancelled = {c.label: c.formula for c in ff.corners if c.cancelled}
+    assert cancelled == {"ωz1": "1/(C1·R2)", "ωp2": "1/(C3·R3)"}
+    assert [line[1] for line in ff._corner_lines()] == ["ωz2", "ωp1"]
+
+
+def lc_pair_with_pole(r2: float) -> Design:
+    """Input R1 + C2, feedback C1 || (R2 + L1): H = -s·C2·(R2 + s·L1)/((1 + s·R1·C2)(1 + s·C1·R2 + s²·L1·C1))."""
+    return Design.from_dict(
+        {"loopcraft": 1, "stage": {"kind": "inverting", "input": "R1 + C2", "feedback": "C1 || (R2 + L1)"},
+         "values": {"R1": 1e3, "C2": 1e-9, "C1": 1e-9, "L1": 1e-3, "R2": r2}}
+    )
+
+
+def test_a_pair_turning_real_never_renumbers_the_other_poles():
+    # Hand algebra (from memory): poles 1/(R1·C2) and the roots of 1 + s·C1·R2 + s²·L1·C1,
+    # ω0 = 1/sqrt(L1·C1) = 1e6 rad/s, Q = sqrt(L1·C1)/(C1·R2): 10 at R2 = 100 Ω, 0.01 at 100 kΩ.
+    damped = {c.label: c for c in lc_pair_with_pole(100.0).factored().corners if c.role == "pole"}
+    assert set(damped) == {"ωp1", "ω0p1"}
+    assert damped["ωp1"].formula == "1/(C2·R1)" and damped["ωp1"].omega_rad_s == pytest.approx(1e6, rel=1e-12)
+    assert damped["ω0p1"].q == pytest.approx(10.0, rel=1e-12) and damped["ω0p1"].q_label == "Qp1"
+    real = {c.label: c for c in lc_pair_with_pole(100e3).factored().corners if c.role == "pole"}
+    # 1/(R1·C2) = 1e6 rad/s now lies between the two real roots, yet keeps ωp1; the numeric roots of the
+    # quadratic take its reserved numbers ωp2 < ωp3 (numpy.roots as the reference).
+    assert set(real) == {"ωp1", "ωp2", "ωp3"}
+    assert real["ωp1"].formula == "1/(C2·R1)"
+    ref = sorted(abs(np.roots([1e-3 * 1e-9, 1e-9 * 100e3, 1.0])))
+    assert real["ωp2"].omega_rad_s == pytest.approx(ref[0], rel=1e-9)
+    assert real["ωp3"].omega_rad_s == pytest.approx(ref[1], rel=1e-9)
+    assert real["ωp2"].omega_rad_s < real["ωp1"].omega_rad_s < real["ωp3"].omega_rad_s

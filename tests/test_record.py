@@ -330,3 +330,21 @@ def test_record_notes_with_a_lone_surrogate_are_refused():
     with pytest.raises(DesignFileError, match="surrogate") as exc:
         record(d, "bad \udcff notes", spread=False)
     assert exc.value.key_path == "notes"
+
+
+def test_corner_rows_carry_the_formula_labels_whatever_the_order():
+    # bus48_loop places the pole 1/(R3·C3) = 177 kHz below (C1 + C2)/(R2·C1·C2) = 182 kHz; with
+    # R2 = 4k the zero 1/(R2·C1) rises above 1/((R1 + R3)·C3). Labels stay with the formulas
+    # (Venable 1983 corner formulas, from memory), in the record's corner table as in the form.
+    from loopcraft.report.record import _corner_rows
+
+    for r2 in (12e3, 4e3):
+        d = loop_design().with_values(R2=r2)
+        v = d.values
+        rows = {name: (formula, value) for name, formula, value in _corner_rows(d.factored())}
+        assert {k: f for k, (f, _v) in rows.items()} == {
+            "ωz1": "1/(C1·R2)", "ωz2": "1/(C3·(R1 + R3))", "ωp1": "(C1 + C2)/(C1·C2·R2)", "ωp2": "1/(C3·R3)"}
+        assert rows["ωz1"][1].startswith(f"{1 / (v['R2'] * v['C1']):.4g} rad/s")
+        assert rows["ωp2"][1].startswith(f"{1 / (v['R3'] * v['C3']):.4g} rad/s")
+    page = record(loop_design().with_values(R2=4e3), created=STAMP).to_markdown()
+    assert re.search(r"ωz1[^\n]*1/\(C1·R2\)", page)

@@ -100,3 +100,72 @@ def test_every_sensitivity_is_finite_or_the_call_is_refused():
     sens = inv("R1", "(C1 + L1) || R2", R1="1k", C1="1n", L1="1m", R2="10k").sensitivity()
     for r in sens.rows:
         assert math.isfinite(r.value) and all(math.isfinite(v) for v in r.by_component.values())
+
+
+# --------------------------------------------------------------------------- rows carry the form's labels
+
+
+def type3(**values):
+    base = {"R1": 10e3, "R2": 22e3, "R3": 470.0, "C1": 6.8e-9, "C2": 150e-12, "C3": 3.3e-9}
+    return inv("R1 || (R3 + C3)", "(R2 + C1) || C2", **{**base, **values})
+
+
+def venable_type3_sensitivities(v):
+    """Label → expected S per part, from the Type III corner formulas (Venable, "The K Factor", 1983,
+    from memory) differentiated as products of powers (Schaumann & Van Valkenburg, "Design of Analog
+    Filters", 2001, ch. 3): ωz1 = 1/(R2 C1), ωz2 = 1/((R1 + R3) C3), ωp1 = (C1 + C2)/(R2 C1 C2),
+    ωp2 = 1/(R3 C3)."""
+    r13 = v["R1"] + v["R3"]
+    c12 = v["C1"] + v["C2"]
+    zero = dict.fromkeys(v, 0.0)
+    return {
+        "ωz1": {**zero, "R2": -1.0, "C1": -1.0},
+        "ωz2": {**zero, "C3": -1.0, "R1": -v["R1"] / r13, "R3": -v["R3"] / r13},
+        "ωp1": {**zero, "R2": -1.0, "C1": -v["C2"] / c12, "C2": -v["C1"] / c12},
+        "ωp2": {**zero, "R3": -1.0, "C3": -1.0},
+    }
+
+
+@pytest.mark.parametrize("values", [
+    {"R2": 5e3},  # 1/(R2 C1) above 1/((R1 + R3) C3); (C1 + C2)/(R2 C1 C2) above 1/(R3 C3)
+    {"R2": 500e3},  # both orders reversed
+    {"C3": 22e3 * 6.8e-9 / 10.47e3},  # the two zeros at exactly the same frequency
+])
+def test_type3_rows_keep_their_formula_labels(values):
+    d = type3(**values)
+    sens = d.sensitivity()
+    rows = {r.label: r for r in sens.rows}
+    want = venable_type3_sensitivities(d.values)
+    assert set(rows) == set(want) == {c.label for c in d.factored().corners}
+    for label, s in want.items():
+        for part, x in s.items():
+            assert rows[label].by_component[part] == pytest.approx(x, rel=1e-12, abs=1e-15), (label, part)
+    form = {c.label: c.omega_rad_s for c in d.factored().corners}
+    assert all(rows[k].value == form[k] for k in form)
+    assert set(sens.moved_by("R1")) == {"ωz2"}
+
+
+def test_numeric_rows_of_a_real_quadratic_take_its_labels():
+    # Input R1 + C2, feedback C1 || (R2 + L1): poles 1/(R1 C2) and the real roots of
+    # 1 + s C1 R2 + s² L1 C1 (hand algebra, from memory). The quadratic's roots are numeric rows
+    # ωp2 < ωp3; their sensitivities are checked against mpmath derivatives of the quadratic formula.
+    v = {"R1": 1e3, "C2": 1e-9, "C1": 1e-9, "L1": 1e-3, "R2": 100e3}
+    rows = {r.label: r for r in inv("R1 + C2", "C1 || (R2 + L1)", **v).sensitivity().rows}
+    assert set(rows) == {"ωz1", "ωp1", "ωp2", "ωp3"}
+    assert rows["ωp1"].by_component["R1"] == pytest.approx(-1) and rows["ωp1"].formulas is not None
+    mpmath.mp.dps = 40
+
+    def root(sign, x):
+        a, b = x["L1"] * x["C1"], x["C1"] * x["R2"]
+        return abs((-b + sign * mpmath.sqrt(b * b - 4 * a)) / (2 * a))
+
+    for label, sign in (("ωp2", 1), ("ωp3", -1)):
+        assert rows[label].formulas is None
+        for part in ("C1", "L1", "R2"):
+            def ln_root(t, part=part, sign=sign):
+                x = {k: mpmath.mpf(val) for k, val in v.items()}
+                x[part] *= mpmath.exp(t)
+                return mpmath.log(root(sign, x))
+
+            ref = float(mpmath.diff(ln_root, 0))
+            assert rows[label].by_component[part] == pytest.approx(ref, abs=1e-6), (label, part)

@@ -2,6 +2,7 @@ import json
 import math
 
 import mpmath
+import numpy as np
 import pytest
 
 import loopcraft as lc
@@ -283,3 +284,62 @@ def test_yield_counts_unstable_samples_as_failures():
     assert abs(sp.yield_fraction - exact) < 4 * math.sqrt(exact * (1 - exact) / n)
     assert sp.yield_fraction == sp.item_yield["stable"] == sp.item_yield["phase_margin_min_deg"]
     assert item(check(d, seed=5), "yield_min").actual == pytest.approx(sp.yield_fraction)
+
+
+# --------------------------------------------------------------------------- corner keys name formulas
+
+
+def type3(spec=None, tol=None, **values):
+    base = {"R1": 10e3, "R2": 22e3, "R3": 470.0, "C1": 6.8e-9, "C2": 150e-12, "C3": 3.3e-9}
+    d = {"loopcraft": 1, "stage": {"kind": "inverting", "input": "R1 || (R3 + C3)", "feedback": "(R2 + C1) || C2"},
+         "values": {**base, **values}}
+    if spec is not None:
+        d["spec"] = spec
+    if tol is not None:
+        d["tolerances"] = tol
+    return lc.Design.from_dict(d)
+
+
+def test_a_corner_key_names_the_same_formula_at_any_values():
+    # Venable, "The K Factor", 1983 (formulas from memory): the zero 1/(R2·C1) is ωz1 and the pole
+    # 1/(R3·C3) is ωp2 whatever their rank: at R2 = 5k the zero 1/(R2·C1) lies above 1/((R1 + R3)·C3)
+    # and (C1 + C2)/(R2·C1·C2) above 1/(R3·C3); at R2 = 220k both orders are reversed.
+    orders = set()
+    for r2 in (5e3, 220e3):
+        v = {"R1": 10e3, "R2": r2, "R3": 470.0, "C1": 6.8e-9, "C2": 150e-12, "C3": 3.3e-9}
+        fz = 1 / (2 * math.pi * v["R2"] * v["C1"])
+        fp = 1 / (2 * math.pi * v["R3"] * v["C3"])
+        spec = {"corners": {"wz1": [fz * (1 - 1e-9), fz * (1 + 1e-9)],  # the ASCII spelling
+                            "ωp2": [fp * (1 - 1e-9), fp * (1 + 1e-9)]}}
+        r = check(type3(spec, R2=r2))
+        assert r.passed, str(r)
+        assert item(r, "corners.ωz1").actual == pytest.approx(fz, rel=1e-12)
+        assert item(r, "corners.ωp2").actual == pytest.approx(fp, rel=1e-12)
+        # The same key with the other zero's value fails: ωz1 is not "the lowest zero".
+        fz2 = 1 / (2 * math.pi * (v["R1"] + v["R3"]) * v["C3"])
+        bad = check(type3({"corners": {"ωz1": [fz2 * (1 - 1e-9), fz2 * (1 + 1e-9)]}}, R2=r2))
+        assert not bad.passed
+        fp1 = (v["C1"] + v["C2"]) / (2 * math.pi * v["R2"] * v["C1"] * v["C2"])
+        orders.add((fz > fz2, fp1 > fp))
+    assert orders == {(True, True), (False, False)}  # both pairs do swap between the two value sets
+
+
+def test_monte_carlo_corner_item_follows_its_formula_across_a_crossing():
+    # Zeros coincident at nominal (R2·C1 = (R1 + R3)·C3, the k-factor placement; Venable 1983):
+    # R2 and C1 at 1 %, the other zero's parts at 20 %, uniform. The box of 1/(2π·R2·C1) is
+    # [f/(1.01²), f/(0.99²)] (monotone in each part; from memory), so every sample meets it,
+    # although in about half of them the other zero is the lower one.
+    c3 = 22e3 * 6.8e-9 / (10e3 + 470.0)
+    f = 1 / (2 * math.pi * 22e3 * 6.8e-9)
+    spec = {"corners": {"ωz1": [f / 1.01**2 * (1 - 1e-12), f / 0.99**2 * (1 + 1e-12)]}, "yield_min": 1.0,
+            "samples": 400}
+    tol = {"R2": "1%", "C1": "1%", "C2": "1%", "R1": "20%", "R3": "20%", "C3": "20%"}
+    d = type3(spec, tol, C3=c3)
+    r = check(d)
+    assert item(r, "yield_min").actual == 1.0, str(r)
+    mc = monte_carlo(d, 400, seed=1)
+    v = mc.values
+    np.testing.assert_allclose(mc.corners["ωz1"], 1 / (2 * np.pi * v["R2"] * v["C1"]), rtol=1e-12)
+    np.testing.assert_allclose(mc.corners["ωz2"], 1 / (2 * np.pi * (v["R1"] + v["R3"]) * v["C3"]), rtol=1e-12)
+    swapped = np.mean(mc.corners["ωz1"] > mc.corners["ωz2"])
+    assert 0.2 < swapped < 0.8  # not vacuous: the zeros cross in many samples

@@ -310,6 +310,24 @@ def test_worst_case_brackets_every_monte_carlo_sample():
     assert "WorstCase(method='corners', vertices=8" in repr(wc)
 
 
+def test_corner_labels_follow_their_formulas_in_spread_and_worst_case():
+    # bus48_loop's poles (C1 + C2)/(R2·C1·C2) = 182 kHz and 1/(R3·C3) = 177 kHz cross within C ±5 %;
+    # each label keeps its formula (Venable, "The K Factor", 1983; from memory) in every sample,
+    # and the worst case of ωp2 = 1/(2π·R3·C3) sits at the box vertex R3, C3 both low (or both high).
+    d = loop_design({"R*": "1%", "C*": "5%"})
+    sp = monte_carlo(d, 2000, seed=3)
+    v = sp.values
+    p1 = (v["C1"] + v["C2"]) / (2 * np.pi * v["R2"] * v["C1"] * v["C2"])
+    p2 = 1 / (2 * np.pi * v["R3"] * v["C3"])
+    np.testing.assert_allclose(sp.corners["ωp1"], p1, rtol=1e-12)
+    np.testing.assert_allclose(sp.corners["ωp2"], p2, rtol=1e-12)
+    assert 0.05 < np.mean(p1 < p2) < 0.95  # not vacuous: the two poles swap in many samples
+    e = worst_case(d).extremes["ωp2"]
+    r3, c3 = d.values["R3"], d.values["C3"]
+    assert e.max == pytest.approx(1 / (2 * math.pi * r3 * 0.99 * c3 * 0.95), rel=1e-12)
+    assert e.min == pytest.approx(1 / (2 * math.pi * r3 * 1.01 * c3 * 1.05), rel=1e-12)
+
+
 def test_worst_case_sensitivity_vertex_for_many_parts():
     # 14 toleranced parts (> 12): one sensitivity-guided vertex pair per quantity.
     # ωp1 = 1/((R8 + R9 + R10)(C1 + C2 + C3 + C4)), K = (R8 + R9 + R10)/(R1 + … + R7).

@@ -1,32 +1,67 @@
 """Write the notebooks under notebooks/ (without outputs) from the cell texts below.
 
-Run: .venv/bin/python tools/make_notebooks.py
+Run: .venv/bin/python tools/make_notebooks.py [OUT_DIR]   (default: notebooks/)
+
+The output is byte-for-byte deterministic, so the committed notebooks can be checked against it
+(tests/test_notebook_sources.py): each cell id is made from the notebook name and the cell's
+index, the format version is fixed here rather than taken from the installed nbformat, and the
+JSON is written by this script (sorted keys, one-space indent, UTF-8, final newline).
 """
 
 from __future__ import annotations
 
+import json
+import sys
 from pathlib import Path
+from typing import Any
 
 import nbformat as nbf
 
 ROOT = Path(__file__).resolve().parents[1] / "notebooks"
 
+#: Notebook format 4.5, the first minor version with cell ids; fixed so an nbformat upgrade changes nothing.
+NBFORMAT = 4
+NBFORMAT_MINOR = 5
+METADATA = {
+    "kernelspec": {"name": "python3", "display_name": "Python 3", "language": "python"},
+    "language_info": {"name": "python"},
+}
 
-def md(text: str):
-    return nbf.v4.new_markdown_cell(text.strip())
+
+def _lines(text: str) -> list[str]:
+    """The source as a list of lines, each but the last ending in a newline (the notebook JSON form)."""
+    lines = text.split("\n")
+    return [line + "\n" for line in lines[:-1]] + [lines[-1]]
 
 
-def code(text: str):
-    return nbf.v4.new_code_cell(text.strip())
+def md(text: str) -> dict[str, Any]:
+    return {"cell_type": "markdown", "metadata": {}, "source": _lines(text.strip())}
 
 
-def write(name: str, cells: list) -> None:
-    nb = nbf.v4.new_notebook()
-    nb.cells = cells
-    nb.metadata["kernelspec"] = {"name": "python3", "display_name": "Python 3", "language": "python"}
-    nb.metadata["language_info"] = {"name": "python"}
-    nbf.validate(nb)
-    nbf.write(nb, ROOT / name)
+def code(text: str) -> dict[str, Any]:
+    return {"cell_type": "code", "execution_count": None, "metadata": {}, "outputs": [],
+            "source": _lines(text.strip())}
+
+
+def cell_id(name: str, index: int) -> str:
+    """A stable cell id: the notebook's stem and the cell's index, e.g. ``quickstart-03``."""
+    return f"{Path(name).stem}-{index:02d}"
+
+
+def notebook_text(name: str, cells: list[dict[str, Any]]) -> str:
+    """The notebook file's exact text (validated against the nbformat 4.5 schema)."""
+    nb = {
+        "cells": [dict(cell, id=cell_id(name, i)) for i, cell in enumerate(cells)],
+        "metadata": METADATA,
+        "nbformat": NBFORMAT,
+        "nbformat_minor": NBFORMAT_MINOR,
+    }
+    nbf.validate(nbf.from_dict(nb))  # from_dict copies, so validation never alters what is written
+    return json.dumps(nb, sort_keys=True, indent=1, ensure_ascii=False) + "\n"
+
+
+def write(name: str, cells: list[dict[str, Any]], out: Path = ROOT) -> None:
+    (out / name).write_bytes(notebook_text(name, cells).encode("utf-8"))
 
 
 QUICKSTART = [
@@ -308,11 +343,22 @@ lc.Explorer(mfb)
 """),
 ]
 
+NOTEBOOKS = {
+    "quickstart.ipynb": QUICKSTART,
+    "integrator_differentiator.ipynb": INTEGRATOR,
+    "colleague_design.ipynb": COLLEAGUE,
+    "bus_converter_type3.ipynb": BUS,
+    "antialias_filter.ipynb": FILTER,
+}
+
+
+def main(argv: list[str]) -> None:
+    out = Path(argv[0]) if argv else ROOT
+    out.mkdir(exist_ok=True)
+    for name, cells in NOTEBOOKS.items():
+        write(name, cells, out)
+    print("wrote", sorted(NOTEBOOKS), "to", out)
+
+
 if __name__ == "__main__":
-    ROOT.mkdir(exist_ok=True)
-    write("quickstart.ipynb", QUICKSTART)
-    write("integrator_differentiator.ipynb", INTEGRATOR)
-    write("colleague_design.ipynb", COLLEAGUE)
-    write("bus_converter_type3.ipynb", BUS)
-    write("antialias_filter.ipynb", FILTER)
-    print("wrote", sorted(p.name for p in ROOT.glob("*.ipynb")))
+    main(sys.argv[1:])

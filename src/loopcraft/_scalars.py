@@ -19,18 +19,20 @@ MAX_NUMBER_TEXT = 64
 # A plain decimal number: optional sign, digits with an optional point, optional exponent.
 
 
-def real_float(value: Real) -> float:
+def real_float(value: float | Real) -> float:
     """The float nearest a real number; ``±inf`` (never OverflowError) beyond the float range.
 
     Parameters
     ----------
     value : int, float, Fraction, numpy scalar …
-        Any :class:`numbers.Real` (booleans are the caller's business).
+        Any :class:`numbers.Real` (booleans are the caller's business). ``float`` is named
+        beside ``Real`` for the type checker, which does not know that int and float are
+        registered as ``Real``.
     """
     try:
         return float(value)
     except OverflowError:
-        return math.inf if value > 0 else -math.inf
+        return -math.inf if value < 0 else math.inf
 
 
 def shown(value: Any, limit: int = 40) -> str:

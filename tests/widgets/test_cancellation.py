@@ -71,8 +71,9 @@ def test_formula_panel_shows_infinite_q_and_the_cancellation(ex):
     assert "Q = ∞" in table and "on the jω axis" in table
     assert "pole-zero cancellation at 60.06 Hz at these values" in table
     assert "e+1" not in table
-    # The cancelled rows are not in the table; the rest keep the full form's numbers.
-    assert ">ω0z2<" in table and ">ωz1<" not in table and ">ωp2<" not in table
+    # The cancelled rows (ωz1, ωp2) are not in the table; the rest keep their labels (the notch
+    # pair is the first pair of the cubic numerator: ω0z1, numbered apart from the real roots).
+    assert ">ω0z1<" in table and ">ωz1<" not in table and ">ωp2<" not in table
 
 
 def test_moving_off_balance_removes_the_diamond(ex):

@@ -524,6 +524,99 @@ def test_pz_units_toggle_keeps_roots() -> None:
     assert ex.pzmap.fig.interaction is None
 
 
+# SI prefixes of the tick labels, read here on our own (from memory: SI prefixes, p … T).
+_SI = {"p": 1e-12, "n": 1e-9, "µ": 1e-6, "u": 1e-6, "m": 1e-3, "k": 1e3, "M": 1e6, "G": 1e9, "T": 1e12}
+
+
+def _label_value(text: str) -> float:
+    """A tick label ("−100k", "10m", "0") as a number."""
+    t = text.replace("\u2212", "-")
+    if t and t[-1] in _SI:
+        return float(t[:-1]) * _SI[t[-1]]
+    return float(t)
+
+
+def _assert_ticks_label_the_axes(ex: Explorer) -> None:
+    """Every s-plane tick reads the real σ or ω at its place, in the map's unit.
+
+    The signed-log axis has sign(k)·x0·10^(|k|-1) at coordinate k (|k| >= 1) and 0 at 0 (the
+    mapping's definition, see loopcraft.widgets._pzmap), with x0 the power of ten a decade below
+    the smallest non-zero |σ| or |ω| of the design's roots in that unit, computed here from the
+    model's roots at the values shown (x0 is fixed when a design is installed).
+    """
+    pz = ex.pzmap
+    unit = pz.units.value
+    tr = ex.design.transfer()
+    roots = np.concatenate([tr.poles, tr.zeros]) / (2 * np.pi if unit == "Hz" else 1.0)
+    parts = np.abs(np.concatenate([roots.real, roots.imag]))
+    parts = parts[parts > 0]
+    x0 = 10.0 ** (math.floor(math.log10(parts.min())) - 1) if parts.size else 1.0
+    for axis, scale in ((pz.x_axis, pz.x_scale), (pz.y_axis, pz.y_scale)):
+        assert f"({unit})" in axis.label
+        ticks = np.asarray(axis.tick_values, dtype=float)
+        assert ticks.size >= 2, axis.label
+        assert scale.min <= ticks.min() and ticks.max() <= scale.max, (axis.label, ticks, scale.min, scale.max)
+        assert np.all(np.diff(ticks) <= 2.0)
+        for k in ticks:
+            label = axis.tick_labels[str(int(k))]  # keyed as the browser prints the number
+            want = 0.0 if k == 0 else math.copysign(x0 * 10.0 ** (abs(k) - 1), k)
+            assert _label_value(label) == pytest.approx(want, rel=1e-9), (axis.label, k, label, want)
+
+
+def test_topology_switch_relabels_the_s_plane_ticks(loop_path) -> None:
+    # After each switch the ticks are the new axis range's values in Hz (or rad/s), never
+    # signed-log coordinates left as they were.
+    ex = Explorer(loop_path)
+    _assert_ticks_label_the_axes(ex)
+    for unit in ("Hz", "rad/s"):
+        ex.pzmap.units.value = unit
+        _assert_ticks_label_the_axes(ex)
+        for key in ("mfb_lowpass", "lead_lag", "sallen_key_highpass", "noninverting_shaped", "type3"):
+            ex.picker.value = key
+            assert ex.picker.value == key and ex.status.message == ""
+            _assert_ticks_label_the_axes(ex)
+            _assert_marks_match_model(ex)
+
+
+def test_manual_pan_moves_the_ticks_with_the_range() -> None:
+    ex = Explorer("type3")
+    pz = ex.pzmap
+    pz.zoom.value = "manual"
+    assert pz.fig.interaction is not None
+    lo, hi = pz.x_scale.min, pz.x_scale.max
+    y_lo, y_hi = pz.y_scale.min, pz.y_scale.max
+    # A pan arrives as the front end's state message on the scales.
+    pz.x_scale.set_state({"min": lo - 2.6, "max": hi - 2.6})
+    pz.y_scale.set_state({"min": y_lo + 1.3, "max": y_hi + 1.3})
+    assert ex.state.plane.x_range == (lo - 2.6, hi - 2.6)
+    assert ex.state.plane.y_range == (y_lo + 1.3, y_hi + 1.3)
+    _assert_ticks_label_the_axes(ex)
+    r2 = ex.sliders["R2"].value
+    ex.sliders["R2"].value = r2 * 1.5
+    assert (pz.x_scale.min, pz.x_scale.max) == (lo - 2.6, hi - 2.6)  # manual zoom keeps the panned range
+    ex.sliders["R2"].value = r2
+    pz.zoom.value = "auto"
+    assert pz.fig.interaction is None
+    xs = np.concatenate([pz.poles.x, pz.zeros.x])
+    assert pz.x_scale.min <= xs.min() and xs.max() <= pz.x_scale.max  # fitted to the roots again
+    _assert_ticks_label_the_axes(ex)
+    _assert_marks_match_model(ex)
+
+
+def test_pz_frame_is_a_function_of_the_state_not_of_the_widgets() -> None:
+    ex = Explorer("type3")
+    pz = ex.pzmap
+    a, plane = ex.analysis, ex.state.plane
+    before = pz.frame(a, None, plane)
+    pz.x_scale.min = -40.0  # widgets changed behind the view's back (auto zoom: not an input)
+    pz.y_scale.max = 9.0
+    after = pz.frame(a, None, plane)
+    assert (after.x_range, after.y_range, after.unit, after.x0) == (before.x_range, before.y_range, "Hz", before.x0)
+    np.testing.assert_array_equal(after.pole_x, before.pole_x)
+    rad = pz.frame(a, None, plane.with_unit("rad/s"))
+    assert rad.unit == "rad/s" and rad.x0 == plane.x0_rad_s and pz.units.value == "Hz"
+
+
 def test_hover_names_the_parts_that_set_a_root() -> None:
     # The type III pole 1/(R3·C3): S = -1 for R3 and for C3, 0 for the others
     # (from memory: ∂ln(1/(R·C))/∂ln R = -1).

@@ -85,10 +85,10 @@ def test_a_redraw_failure_after_new_sections_rolls_back(monkeypatch):
     before, design = ex.view_state(), ex.design
     original = ex.pzmap.frame
 
-    def failing(a, sens):
+    def failing(a, sens, plane):
         if a.actual is not None:
             raise ZeroDivisionError("float division by zero")
-        return original(a, sens)
+        return original(a, sens, plane)
 
     monkeypatch.setattr(ex.pzmap, "frame", failing)
     p = ex.opamp_panel

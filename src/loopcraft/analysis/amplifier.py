@@ -35,6 +35,7 @@ from ..model.opamp import OpAmp
 from ..numeric.evaluator import TransferResult
 from ..numeric.factors import FactoredNumeric, factored_from_tf
 from ..symbolic.symbols import S
+from .band import crossing_search_band_hz, departure_search_band_hz, union_band_hz
 from .margins import LoopMargins, loop_margins_factored, slope_db_per_decade
 
 __all__ = ["AmplifierLoop", "ActualStage", "actual_stage", "DEPART_DB"]
@@ -255,10 +256,24 @@ def actual_stage(stage, result: TransferResult, opamp: OpAmp) -> ActualStage:
 
 
 def _band(*fns: FactoredNumeric, extra_hz: tuple[float, ...] = ()) -> tuple[float, float]:
-    fs = [f.f_hz for fn in fns for f in fn.factors] + list(extra_hz)
-    fs = [f for f in fs if math.isfinite(f) and f > 0] or [1.0]
-    # Far below the corners too: finite A0 shows up decades below them (integrators).
-    return max(min(fs) / 1e5, 1e-6), min(max(fs) * 1e3, 1e13)
+    """Where the actual response is compared with the ideal one, Hz.
+
+    :func:`loopcraft.analysis.band.departure_search_band_hz`: far below the corners too,
+    as a finite A0 shows up decades below them (integrators).
+    """
+    return departure_search_band_hz(*fns, extra_hz=extra_hz)
+
+
+def _loop_search_band(loop: FactoredNumeric, f_lo_hz: float, f_hi_hz: float) -> tuple[float, float]:
+    """The band ``f_lo_hz … f_hi_hz`` (Hz) widened to the loop's own crossing search band.
+
+    See :func:`loopcraft.analysis.band.crossing_search_band_hz`; a loop with no frequency
+    scale of its own keeps the given band.
+    """
+    try:
+        return union_band_hz((f_lo_hz, f_hi_hz), crossing_search_band_hz(loop))
+    except AnalysisError:
+        return f_lo_hz, f_hi_hz
 
 
 def _departs_hz(
@@ -289,7 +304,8 @@ def _amplifier_loop(
     loop: FactoredNumeric, actual: FactoredNumeric, ideal: FactoredNumeric, opamp: OpAmp, ng: FactoredNumeric | None
 ) -> AmplifierLoop:
     f_lo, f_hi = _band(loop, ideal, extra_hz=(opamp.gbw_hz, opamp.dominant_pole_hz))
-    margins = loop_margins_factored(loop, f_lo, f_hi, points_per_decade=MARGIN_GRID_PER_DECADE)
+    s_lo, s_hi = _loop_search_band(loop, f_lo, f_hi)
+    margins = loop_margins_factored(loop, s_lo, s_hi, points_per_decade=MARGIN_GRID_PER_DECADE)
     warnings: list[str] = []
     fc = pm = roc = None
     # Judge stability at the crossings where |T| falls through 1 (a rising crossing, as

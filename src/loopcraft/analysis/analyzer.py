@@ -26,6 +26,7 @@ from ..numeric.asymptote import (
 from ..numeric.evaluator import TransferResult
 from ..numeric.factors import FactoredNumeric
 from .amplifier import ActualStage, actual_stage
+from .band import display_band_hz
 from .loop import PlantLoop, plant_loop
 from .margins import loop_branch_offset_deg
 
@@ -33,13 +34,12 @@ __all__ = ["Analysis", "Analyzer", "default_band_hz", "analysis_sections", "loop
 
 
 def default_band_hz(*fns: FactoredNumeric, extra_hz: tuple[float, ...] = ()) -> tuple[float, float]:
-    """A frequency band (Hz) two decades beyond the extreme corners of the given functions."""
-    fs = [f.f_hz for fn in fns for f in fn.factors] + [x for x in extra_hz if math.isfinite(x) and x > 0]
-    if not fs:
-        fs = [1e3]
-    lo = 10 ** (math.floor(math.log10(min(fs))) - 2)
-    hi = 10 ** (math.ceil(math.log10(max(fs))) + 2)
-    return max(lo, 1e-3), min(hi, 1e12)
+    """A frequency band (Hz) two decades beyond the extreme corners of the given functions.
+
+    The display band of :func:`loopcraft.analysis.band.display_band_hz`: ``extra_hz``
+    (Hz) anchors both ends like a corner; whole decades, 1 mHz … 1 THz.
+    """
+    return display_band_hz(*fns, extra_hz=extra_hz)
 
 
 @dataclass(frozen=True)

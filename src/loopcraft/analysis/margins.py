@@ -51,11 +51,11 @@ from ..numeric.asymptote import (
     _check_fn,
     _exact_mag_db_u,
     _exact_phase_deg_u,
-    _magnitude_breaks,
     exact_mag_db,
     exact_phase_deg,
 )
 from ..numeric.factors import FactoredNumeric
+from .band import crossing_search_band_hz
 
 __all__ = [
     "Crossover",
@@ -441,33 +441,11 @@ def loop_margins(
 
 
 def _auto_band_hz(fn: FactoredNumeric) -> tuple[float, float]:
-    """Two decades beyond the extreme corners and asymptotic 0 dB crossings (Hz)."""
-    breaks = sorted(_magnitude_breaks(fn))
-    a0 = 20.0 * math.log10(abs(fn.gain))
-    slope = 20.0 * fn.origin_order
-    # Asymptote A(u) = a0 + slope·u + Σ d·max(0, u - u_b), u = log10(ω rad/s).
-    candidates = [b for b, _ in breaks]
-    edges = [-math.inf] + [b for b, _ in breaks] + [math.inf]
-    intercept = a0
-    for j in range(len(edges) - 1):
-        lo, hi = edges[j], edges[j + 1]
-        if slope != 0.0:
-            root = -intercept / slope
-            if lo <= root <= hi:
-                candidates.append(root)
-        if j < len(breaks):
-            d = breaks[j][1]
-            # After the break: A = intercept + slope·u + d·(u - b)
-            intercept -= d * breaks[j][0]
-            slope += d
-    if not candidates:
-        raise AnalysisError(
-            f"a loop with no corners and origin order {fn.origin_order!r} has no frequency scale; "
-            "give f_min_hz and f_max_hz"
-        )
-    u_lo = min(candidates) - _LOG10_2PI - 2.0
-    u_hi = max(candidates) - _LOG10_2PI + 2.0
-    return 10.0**u_lo, 10.0**u_hi
+    """Two decades beyond the extreme corners and asymptotic 0 dB crossings (Hz).
+
+    See :func:`loopcraft.analysis.band.crossing_search_band_hz`.
+    """
+    return crossing_search_band_hz(fn)
 
 
 def _resonance_points(fn: FactoredNumeric, u0: float, u1: float) -> np.ndarray:

@@ -23,14 +23,14 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from functools import cache
 
-import numpy as np
 import sympy as sp
 
 from ..errors import AnalysisError
-from ..numeric.evaluator import Evaluator, _poly_roots, compile_derivation
+from ..numeric.evaluator import Evaluator, compile_derivation
+from ..numeric.factored import label_sort_key
 from ..symbolic.derivation import Derivation, formula_text
 
 __all__ = ["CornerSensitivity", "Sensitivity", "sensitivity"]
@@ -43,8 +43,8 @@ class CornerSensitivity:
     Parameters
     ----------
     label : str
-        ``"ωz1"``, ``"ω0p1"``, ``"Qp1"`` … (numbered as in the factored form:
-        zeros then poles, each by increasing frequency).
+        ``"ωz1"``, ``"ω0p1"``, ``"Qp1"`` …: the label of the factored form's
+        row (fixed per topology, not by frequency), so rows match by label.
     role : {"zero", "pole"}
     quantity : {"omega", "q"}
         ω or ω0 (rad/s), or Q.
@@ -121,25 +121,19 @@ def _symbolic(derivation: Derivation):
     return out
 
 
-def _corner_values(ev: Evaluator, vals: tuple[float, ...]) -> list[list[tuple[str, float]]]:
-    """Per layout factor: [(quantity, value), ...] from the compiled coefficients."""
+def _check_coefficients(ev: Evaluator, vals: tuple[float, ...]) -> None:
+    """Refuse values where a factor degenerates (zero or non-finite constant or leading coefficient)."""
     c = ev.coefficients(vals)
-    out = []
     for role, degree, _mult, off in ev._layout:
         coeffs = c[off : off + degree + 1]
         if c[off] == 0 or not all(math.isfinite(x) for x in coeffs) or coeffs[-1] == 0:
             raise AnalysisError(f"a {role} factor degenerates at these values; its sensitivities are undefined")
-        a = [x / c[off] for x in coeffs]
-        if degree == 1:
-            out.append([("omega", abs(1.0 / a[1]))])
-        elif degree == 2 and a[2] > 0:
-            w0 = 1.0 / math.sqrt(a[2])
-            # A pair with no damping term (Q infinite) has no Q row.
-            out.append([("omega", w0)] + ([("q", 1.0 / (w0 * abs(a[1])))] if a[1] != 0 else []))
-        else:
-            roots = _poly_roots(a) if degree > 2 else np.roots(a[::-1])
-            out.append([("omega", float(abs(r))) for r in sorted(roots, key=abs)])
-    return out
+
+
+def _by_label(ev: Evaluator, vals: tuple[float, ...]) -> dict[str, tuple[int, float, float | None]]:
+    """Label → (order, ω or ω0 in rad/s, Q) of every factor at ``vals`` (the evaluator's own labels)."""
+    tr = ev.evaluate_tuple(vals)
+    return {lb: (f.order, f.omega_rad_s, f.q) for f, lb in zip(tr.factored.factors, tr.labels, strict=True)}
 
 
 def sensitivity(design, values: Mapping[str, float] | None = None, *, rel_step: float = 1e-6) -> Sensitivity:
@@ -157,99 +151,76 @@ def sensitivity(design, values: Mapping[str, float] | None = None, *, rel_step: 
     Returns
     -------
     Sensitivity
+        One ω row per corner of the factored form, with the form's own label
+        (``"ωz1"``, ``"ω0p1"``; fixed per topology, see
+        :func:`loopcraft.numeric.evaluator.corner_labels`), and a Q row
+        (``"Qp1"``) after each second-order factor with a finite Q; in the
+        form's label order. A repeated factor gives one row per copy.
     """
     der = design.derivation
     ev = compile_derivation(der)
     vals = ev.values_tuple(values if values is not None else design.values)
     names = ev.names
     sym = _symbolic(der)
-    base = _corner_values(ev, vals)
-    numeric_cache: dict[int, list[list[tuple[str, float]]]] = {}
+    _check_coefficients(ev, vals)
+    tr = ev.evaluate_tuple(vals)
+    owner = {lb: i for i, b in enumerate(ev.label_blocks) for lb in b.real + b.pairs}
+    numeric_cache: dict[int, dict[str, tuple[int, float, float | None]]] = {}
 
-    def perturbed(j: int, sign: float) -> list[list[tuple[str, float]]]:
+    def perturbed(j: int, sign: float) -> dict[str, tuple[int, float, float | None]]:
         key = j if sign > 0 else -j - 1
         if key not in numeric_cache:
             v = list(vals)
             v[j] *= math.exp(sign * rel_step)
-            numeric_cache[key] = _corner_values(ev, tuple(v))
+            numeric_cache[key] = _by_label(ev, tuple(v))
         return numeric_cache[key]
 
-    rows: list[tuple[float, CornerSensitivity]] = []
-    pairs: set[int] = set()  # factors reported as ω0 (and Q) of a second-order factor
-    for i, ((role, deg, _mult, _off), entry) in enumerate(zip(ev._layout, sym, strict=True)):
-        # Closed form: first order, or a second-order factor with complex roots (ω0, and Q when damped);
-        # a second-order factor with real roots of opposite sign is two numeric roots instead.
-        closed = entry is not None and (deg == 1 or [q for q, _ in base[i]] in (["omega"], ["omega", "q"]))
-        if closed and deg == 2:
-            pairs.add(i)
-        if closed:
+    rows: list[CornerSensitivity] = []
+    order = sorted(zip(tr.factored.factors, tr.labels, strict=True), key=lambda fl: label_sort_key(fl[1]))
+    for f, label in order:
+        i = owner[label]
+        role, deg = f.role, der.factors[i].degree
+        entry = sym[i]
+        wanted = [("omega", label, f.omega_rad_s)]
+        if f.order == 2 and f.q is not None and math.isfinite(f.q):
+            wanted.append(("q", "Q" + label[2:], f.q))
+        # Closed form: a first-order factor, or a second-order factor whose roots form a pair
+        # here (ω0, and Q when damped); real roots of a quadratic and roots of higher
+        # factors are numeric.
+        if entry is not None and (deg == 1 or f.order == 2):
             fns = {qname: (fn, texts) for qname, fn, texts in entry}
-            for qname, value in base[i]:
+            for qname, lb, value in wanted:
+                if qname not in fns:
+                    continue  # a pair lossless by topology has no Q row
                 fn, texts = fns[qname]
                 try:
-                    s = [float(x) for x in fn(*vals)]
+                    sv = [float(x) for x in fn(*vals)]
                 except (ArithmeticError, ValueError, TypeError):
-                    s = [math.nan]
-                if not all(math.isfinite(x) for x in s):
+                    sv = [math.nan]
+                if not all(math.isfinite(x) for x in sv):
                     raise AnalysisError(
                         f"the sensitivity of a {role}'s {'Q' if qname == 'q' else 'corner'} is undefined at "
                         "these values (it degenerates to 0 or infinity)"
                     )
-                rows.append(
-                    (
-                        i,
-                        CornerSensitivity(
-                            "",
-                            role,
-                            qname,
-                            value,
-                            dict(zip(names, s, strict=True)),
-                            dict(zip(names, texts, strict=True)),
-                        ),
-                    )
-                )
-        else:
-            for k, (qname, value) in enumerate(base[i]):
-                by = {}
-                for j, n in enumerate(names):
+                rows.append(CornerSensitivity(lb, role, qname, value, dict(zip(names, sv, strict=True)),
+                                              dict(zip(names, texts, strict=True))))
+            continue
+        for qname, lb, value in wanted:
+            by = {}
+            for j, n in enumerate(names):
+                up, dn = perturbed(j, 1.0).get(label), perturbed(j, -1.0).get(label)
+                k = 1 if qname == "omega" else 2
+                if up is None or dn is None or up[0] != f.order or dn[0] != f.order:
+                    by[n] = math.nan
+                else:
                     try:
-                        up = perturbed(j, 1.0)[i][k][1]
-                        dn = perturbed(j, -1.0)[i][k][1]
-                        by[n] = (math.log(up) - math.log(dn)) / (2 * rel_step)
-                    except (IndexError, ArithmeticError, ValueError):
+                        by[n] = (math.log(up[k]) - math.log(dn[k])) / (2 * rel_step)
+                    except (ArithmeticError, ValueError, TypeError):
                         by[n] = math.nan
-                    if not math.isfinite(by[n]):
-                        raise AnalysisError(
-                            f"the sensitivity of a {role} to {n} is undefined at these values "
-                            "(a root degenerates or changes kind under a small step)"
-                        )
-                rows.append((i, CornerSensitivity("", role, qname, value, by, None)))
-    return Sensitivity(_label(rows, pairs))
-
-
-def _label(rows: list[tuple[int, CornerSensitivity]], pairs: set[int] | None = None) -> tuple[CornerSensitivity, ...]:
-    """Number the corners as the factored form does: zeros then poles, by frequency.
-
-    ``pairs`` holds the factors reported as a second-order factor (ω0 and Q); a lossless one
-    has only its ω0 row, still labelled ``ω0…``.
-    """
-    pairs = pairs or set()
-    groups: dict[tuple[int, int], list[CornerSensitivity]] = {}
-    for n, (i, r) in enumerate(rows):
-        # A Q row joins the ω0 row of its factor; numeric factors give one group per root.
-        pair = _has_q(rows, i) or i in pairs
-        key = (i, -1) if r.quantity == "q" or (i, -1) not in groups and pair else (i, n)
-        groups.setdefault(key, []).append(r)
-    out = []
-    for role, tag in (("zero", "z"), ("pole", "p")):
-        mine = sorted((kg for kg in groups.items() if kg[1][0].role == role), key=lambda kg: kg[1][0].value)
-        for n, (key, g) in enumerate(mine, start=1):
-            if len(g) == 2:
-                out += [replace(g[0], label=f"ω0{tag}{n}"), replace(g[1], label=f"Q{tag}{n}")]
-            else:
-                out.append(replace(g[0], label=f"ω0{tag}{n}" if key[1] == -1 else f"ω{tag}{n}"))
-    return tuple(out)
-
-
-def _has_q(rows: list[tuple[int, CornerSensitivity]], i: int) -> bool:
-    return any(j == i and r.quantity == "q" for j, r in rows)
+                if not math.isfinite(by[n]):
+                    raise AnalysisError(
+                        f"the sensitivity of {lb} (a {role}) to {n} is undefined at these values "
+                        "(a root degenerates or changes kind under a small step)"
+                    )
+            rows.append(CornerSensitivity(lb, role, qname, value, by, None))
+    return Sensitivity(tuple(rows))

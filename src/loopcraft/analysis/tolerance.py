@@ -141,11 +141,13 @@ from ..errors import AnalysisError, DesignFileError
 from ..model.spec_section import parse_spec, sample_pass
 from ..numeric.asymptote import exact_mag_db, exact_phase_deg
 from ..numeric.evaluator import compile_derivation
+from ..numeric.factored import label_sort_key
 from ..numeric.factors import factored_from_tf
 from ..symbolic.derivation import derive
 from ..symbolic.symbols import S, component_symbol
-from .analyzer import default_band_hz
-from .loop import loop_sign
+from .band import crossing_search_band_hz, display_band_hz
+from .loop import MARGIN_GRID_PER_DECADE, loop_sign
+from .margins import loop_margins_factored
 
 __all__ = [
     "DISTRIBUTIONS",
@@ -417,7 +419,8 @@ class Spread:
         The loop gain (None without a plant).
     corners : mapping of str to ndarray
         Per-sample corners by factored-form label: ω rows (``"ωz1"``, ``"ω0p1"``) in **Hz**,
-        Q rows plain. A label follows the factor that carries it at nominal values.
+        Q rows plain. The labels are the factored form's, fixed per topology by each corner's
+        formula, so a label follows its formula in every sample.
     dc_gain_db : ndarray
         ``20·log10|H(0)|`` of the stage as built (±inf with an origin pole/zero and no real op-amp).
     crossover_hz, phase_margin_deg, gain_margin_db : ndarray or None
@@ -1137,13 +1140,6 @@ class _Engine:
         self.nominal_values = np.array([design.values[n] for n in self.names], dtype=float)
         self.gbw0 = self.opamp.gbw_hz if self.opamp is not None else None
         self.ideal_nominal = compile_derivation(der)(design.values).factored
-        if f_hz is None:
-            extra = (self.opamp.gbw_hz,) if self.opamp is not None else ()
-            fns = [self.ideal_nominal] + ([self.plant_fn] if self.plant_fn is not None else [])
-            lo, hi = default_band_hz(*fns, extra_hz=extra)
-            f_hz = np.logspace(math.log10(lo), math.log10(hi), _DEFAULT_POINTS)
-        f = self.f_hz = _check_grid(f_hz)
-        self.u = np.log10(f)
         # The stage as built at nominal values, in factored form: its analytic continuous phase
         # is the reference branch of every sample's phase.
         gain, factors = self.factor_arrays(self.nominal_values[:, None])
@@ -1152,6 +1148,11 @@ class _Engine:
             self.stage_nominal = self.ideal_nominal
         else:
             self.stage_nominal = factored_from_tf(_trim(num)[::-1, 0], _trim(den)[::-1, 0])
+        if f_hz is None:
+            lo, hi = self._default_band_hz()
+            f_hz = np.logspace(math.log10(lo), math.log10(hi), _DEFAULT_POINTS)
+        f = self.f_hz = _check_grid(f_hz)
+        self.u = np.log10(f)
         self.stage_ph_nom_deg = exact_phase_deg(self.stage_nominal, f)
         self.stage_db_nom = exact_mag_db(self.stage_nominal, f)
         nf = f.size
@@ -1180,6 +1181,29 @@ class _Engine:
             self.cl_start = self._closed_loop_roots(num, den)
         self._local = threading.local()
         self._structure = self._corner_structure()
+
+    def _default_band_hz(self) -> tuple[float, float]:
+        """The default grid's band, Hz: the display band of the nominal design.
+
+        :func:`loopcraft.analysis.band.display_band_hz` over the ideal stage and the plant,
+        anchored also on the op-amp's gain-bandwidth and on every gain and phase crossover
+        of the nominal loop, so that the crossings each sample is searched for on the grid
+        lie two decades or more inside it (the band the record's Bode figure shows).
+        """
+        extra = [self.opamp.gbw_hz] if self.opamp is not None else []
+        if self.plant_fn is not None:
+            loop = (self.plant_fn * self.stage_nominal).scaled(self.loop_k)
+            try:
+                m = loop_margins_factored(loop, points_per_decade=MARGIN_GRID_PER_DECADE)
+                extra += [c.f_hz for c in m.crossovers] + [g.f_hz for g in m.gain_margins]
+            except AnalysisError:
+                # No margins of the nominal loop (no frequency scale, or a phase of -180° over
+                # an interval): anchor on the band they would be searched in, when it exists.
+                try:
+                    extra += list(crossing_search_band_hz(loop))
+                except AnalysisError:
+                    pass
+        return display_band_hz(self.ideal_nominal, self.plant_fn, extra_hz=tuple(extra))
 
     def _workspace(self) -> dict[str, np.ndarray]:
         ws = getattr(self._local, "ws", None)
@@ -1329,11 +1353,17 @@ class _Engine:
         return out
 
     def _corner_structure(self):
-        """Per factor the plan, and the labels: [(ω label, Q label or None, factor index, entry index)]."""
+        """Per factor the plan, and the labels: [(ω label, Q label or None, factor index, entry index)].
+
+        Labels are the factored form's (:func:`loopcraft.numeric.evaluator.corner_labels`, fixed per
+        topology); the plan (pair or real roots, and how a numeric factor splits) is the nominal one,
+        numeric roots taking their factor's labels in frequency order at nominal values.
+        """
         _gain, factors = self.factor_arrays(self.nominal_values[:, None])
+        blocks = compile_derivation(_derivation(self.design)).label_blocks
         plans: list[Any] = []
-        entries = []  # (role, ω nominal, is_pair, factor index, entry index)
-        for i, (role, mult, a) in enumerate(factors):
+        labelled = []
+        for i, (_role, mult, a) in enumerate(factors):
             deg = a.shape[0] - 1
             if deg == 1:
                 plan: Any = None
@@ -1353,14 +1383,18 @@ class _Engine:
                         k += 2
             plans.append(plan)
             vals = self._factor_corners(a, deg, plan)
-            for _ in range(mult):
-                for e, (w, q) in enumerate(vals):
-                    entries.append((role, float(w[0]), q is not None, i, e))
-        labelled = []
-        for role, tag in (("zero", "z"), ("pole", "p")):
-            mine = sorted((e for e in entries if e[0] == role), key=lambda e: e[1])
-            for n, (_r, _w, is_pair, i, e) in enumerate(mine, start=1):
-                labelled.append((f"ω0{tag}{n}" if is_pair else f"ω{tag}{n}", f"Q{tag}{n}" if is_pair else None, i, e))
+            # As the evaluator: within one copy, real roots and pairs take the block's labels by (ω, order).
+            rank = sorted(range(len(vals)), key=lambda e: (float(vals[e][0][0]), 1 if vals[e][1] is not None else 0))
+            for k in range(mult):
+                real = iter(blocks[i].real[k * deg:(k + 1) * deg])
+                pairs = iter(blocks[i].pairs[k * (deg // 2):(k + 1) * (deg // 2)])
+                for e in rank:
+                    if vals[e][1] is None:
+                        labelled.append((next(real), None, i, e))
+                    else:
+                        wl = next(pairs)
+                        labelled.append((wl, "Q" + wl[2:], i, e))
+        labelled.sort(key=lambda t: label_sort_key(t[0]))
         return plans, labelled
 
     def corners(self, factors) -> dict[str, np.ndarray]:

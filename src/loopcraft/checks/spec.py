@@ -146,17 +146,16 @@ def _hz_range(r: tuple[float, float]) -> str:
 
 
 def nominal_corners(design) -> dict[str, float]:
-    """Corner label → value at nominal values: Hz for ω labels, Q for Q labels (FactoredForm numbering)."""
+    """Corner label → value at nominal values: Hz for ω labels, Q for Q labels.
+
+    The labels are the rows' own (:attr:`loopcraft.numeric.factored.CornerRow.label`),
+    fixed per topology, so a spec key names the same formula whatever the values.
+    """
     out: dict[str, float] = {}
-    counts = {"zero": 0, "pole": 0}
     for c in design.factored().corners:
-        counts[c.role] += 1
-        tag = ("z" if c.role == "zero" else "p") + str(counts[c.role])
-        if c.order == 1:
-            out[f"ω{tag}"] = c.f_hz
-        else:
-            out[f"ω0{tag}"] = c.f_hz
-            out[f"Q{tag}"] = float(c.q)
+        out[c.label] = c.f_hz
+        if c.q_label is not None:
+            out[c.q_label] = float(c.q)
     return out
 
 

@@ -99,7 +99,7 @@ class Series:
 
     def impedance(self, values: Mapping[str, float], s: np.ndarray) -> np.ndarray:
         """Numeric impedance in ohms at complex frequencies ``s`` (rad/s)."""
-        return sum(p.impedance(values, s) for p in self.parts)
+        return sum((p.impedance(values, s) for p in self.parts), np.zeros(np.shape(s), dtype=complex))
 
 
 @dataclass(frozen=True)
@@ -122,7 +122,7 @@ class Parallel:
 
     def impedance(self, values: Mapping[str, float], s: np.ndarray) -> np.ndarray:
         """Numeric impedance in ohms at complex frequencies ``s`` (rad/s)."""
-        return 1.0 / sum(1.0 / p.impedance(values, s) for p in self.parts)
+        return 1.0 / sum((1.0 / p.impedance(values, s) for p in self.parts), np.zeros(np.shape(s), dtype=complex))
 
 
 Node = Element | Series | Parallel
@@ -283,7 +283,7 @@ def _ends_name(ch: str) -> bool:
     return ch.isspace() or ch in "+|()"
 
 
-def _flatten(parts: list[Node], kind: type) -> list[Node]:
+def _flatten(parts: list[Node], kind: type[Series] | type[Parallel]) -> list[Node]:
     out: list[Node] = []
     for p in parts:
         out.extend(p.parts if isinstance(p, kind) else (p,))

@@ -49,6 +49,7 @@ import math
 from abc import ABC, abstractmethod
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
+from functools import partial
 from typing import Any, ClassVar
 
 import numpy as np
@@ -955,9 +956,7 @@ def _general_from_dict(d: Mapping[str, Any], key_path: str) -> Plant:
         kwargs["origin_order"] = n
     for key in ("zeros_hz", "poles_hz", "rhp_zeros_hz", "rhp_poles_hz"):
         if key in d:
-            kwargs[key] = _read_list(
-                d, key, f"{key_path}.{key}", lambda v, w, k=key: _read_number(v, w, k, "Hz")
-            )
+            kwargs[key] = _read_list(d, key, f"{key_path}.{key}", partial(_read_number, name=key, unit="Hz"))
     for key in ("zero_pairs", "pole_pairs"):
         if key in d:
             kwargs[key] = _read_list(d, key, f"{key_path}.{key}", _read_pair)
@@ -973,9 +972,7 @@ def _polynomial_from_dict(d: Mapping[str, Any], key_path: str) -> Plant:
                 f"missing key {key!r} (coefficients in descending powers of s, s in rad/s)",
                 key_path,
             )
-        kwargs[key] = _read_list(
-            d, key, f"{key_path}.{key}", lambda v, w, k=key: _read_number(v, w, k, "", signed=True)
-        )
+        kwargs[key] = _read_list(d, key, f"{key_path}.{key}", partial(_read_number, name=key, unit="", signed=True))
     return _construct(PolynomialPlant, kwargs, key_path, {})
 
 

@@ -32,11 +32,14 @@ Definitions (the same at nominal values and per Monte Carlo sample):
   the phase crossovers (never larger than the exact value);
 * **crossover** — the *highest* gain crossover (where the loop finally runs
   out of gain: its bandwidth);
-* **corners** — labels as in :class:`loopcraft.numeric.factored.FactoredForm` (zeros then
-  poles, each numbered by increasing frequency at nominal values): ``ωz1``,
-  ``ωp2`` for real roots, ``ω0p1`` and ``Qp1`` for a second-order factor.
-  ASCII spellings ``wz1``, ``w0p1`` are accepted. ω ranges are in **Hz**
-  (f = ω/2π), Q ranges are plain numbers;
+* **corners** — labels as in :class:`loopcraft.numeric.factored.FactoredForm`:
+  ``ωz1``, ``ωp2`` for real roots, ``ω0p1`` and ``Qp1`` for a second-order
+  factor. A label belongs to a corner's formula, fixed once per topology
+  (:func:`loopcraft.numeric.evaluator.corner_labels`), not to its rank in
+  frequency: ``ωz1`` of a Type III is ``1/(C1·R2)`` whatever the values, at
+  nominal values and in every Monte Carlo sample (``loopcraft analyze``
+  lists each label with its formula). ASCII spellings ``wz1``, ``w0p1`` are
+  accepted. ω ranges are in **Hz** (f = ω/2π), Q ranges are plain numbers;
 * **DC gain** — ``20·log10|H(0)|`` of the stage *as built*: with the real
   op-amp when the design has one (finite even for an integrator), else the
   ideal stage (infinite for an integrator, which then fails any finite range);

@@ -12,21 +12,27 @@ Conditioning: each factor is normalized to f(0) = 1, so its coefficients are
 component values spread. First-order roots are -c0/c1 exactly; quadratic roots
 use the cancellation-free formula; factors of degree three and above are
 solved on a frequency-scaled polynomial and polished by Newton steps on it.
+
+Corner labels: every numeric factor carries a label (``ωz1``, ``ω0p2`` …; see
+:func:`corner_labels`) fixed once per topology by the symbolic factor it comes
+from, never by its rank in frequency at the current values, so a label names
+the same formula whatever the values; :attr:`TransferResult.labels` holds them.
 """
 
 from __future__ import annotations
 
 import math
+import re
 from collections.abc import Mapping
 from dataclasses import dataclass, field, replace
-from functools import cached_property
+from functools import cache, cached_property
 
 import numpy as np
 import sympy as sp
 
 from ..errors import AnalysisError, ComponentValueError
 from ..model.values import MAX_VALUE, MIN_VALUE, parse_value
-from ..symbolic.derivation import Derivation, formula_text
+from ..symbolic.derivation import Derivation, SymbolicFactor, formula_text
 from ..symbolic.symbols import element_kind
 from .factors import (
     JW_AXIS_REL_TOL,
@@ -39,7 +45,7 @@ from .factors import (
     polynomial_roots,
 )
 
-__all__ = ["Evaluator", "TransferResult", "compile_derivation"]
+__all__ = ["Evaluator", "LabelBlock", "TransferResult", "compile_derivation", "corner_labels"]
 
 
 @dataclass(frozen=True)
@@ -56,6 +62,11 @@ class TransferResult:
         included (every root of the numerator and denominator).
     values : dict
         The component values used, in SI base units.
+    labels : tuple of str
+        The corner label of each factor of ``factored`` (same order): ``"ωz1"``
+        for a real root, ``"ω0p1"`` for a complex pair (its Q is ``"Qp1"``),
+        fixed per topology by :func:`corner_labels`. Empty for a result built
+        by hand from roots (no topology behind it).
 
     Notes
     -----
@@ -72,6 +83,7 @@ class TransferResult:
     zeros: np.ndarray
     poles: np.ndarray
     values: Mapping[str, float] = field(repr=False)
+    labels: tuple[str, ...] = ()
 
     @property
     def gain(self) -> float:
@@ -182,6 +194,100 @@ def _poly_roots(a: list[float]) -> np.ndarray:
     return polynomial_roots(a[::-1])
 
 
+@dataclass(frozen=True)
+class LabelBlock:
+    """The corner labels one symbolic factor owns (fixed once per topology).
+
+    Parameters
+    ----------
+    real : tuple of str
+        ω labels (``"ωz1"`` …) for the roots that come out real: degree ×
+        multiplicity of them, copy by copy.
+    pairs : tuple of str
+        ω0 labels (``"ω0p1"`` …) for the complex pairs: (degree // 2) ×
+        multiplicity of them, copy by copy. The Q of ``"ω0p1"`` is ``"Qp1"``.
+    """
+
+    real: tuple[str, ...]
+    pairs: tuple[str, ...]
+
+
+def _natural_key(text: str) -> tuple[tuple[int, int, str], ...]:
+    """Sort key that orders embedded numbers by value (``C2`` before ``C10``)."""
+    return tuple((0, int(t), "") if t.isdigit() else (1, 0, t) for t in re.findall(r"\d+|\D+", text))
+
+
+def _factor_key(f: SymbolicFactor) -> tuple:
+    """Order of a symbolic factor for numbering: degree, the parts it depends on, its formula text."""
+    parts = sorted((str(x) for c in f.coefficients for x in sp.sympify(c).free_symbols), key=_natural_key)
+    text = f"{f.corner_text} {f.q_text or ''}" if f.degree <= 2 else formula_text(f.normalized_expr())
+    return (f.degree, tuple(_natural_key(p) for p in dict.fromkeys(parts)), _natural_key(text))
+
+
+@cache
+def corner_labels(derivation: Derivation) -> tuple[LabelBlock, ...]:
+    """The labels of each symbolic factor of ``derivation`` (same order), from the topology alone (cached).
+
+    Parameters
+    ----------
+    derivation : Derivation
+        The symbolic derivation of the topology.
+
+    Returns
+    -------
+    tuple of LabelBlock
+
+    Notes
+    -----
+    The rule, applied once per topology and never to values:
+
+    * each role (zeros ``z``, poles ``p``) is numbered on its own, in two
+      sequences: ``ω`` for real roots and ``ω0`` (with ``Q``) for complex pairs;
+    * a symbolic factor of degree d and multiplicity m owns d·m numbers of the
+      ``ω`` sequence (as many real roots as it can have) and (d // 2)·m of the
+      ``ω0`` sequence (as many pairs), so a factor whose roots turn from real
+      to complex never shifts another factor's labels;
+    * factors take their numbers in the order: degree; then the designators
+      the factor depends on, sorted, compared as lists (numbers inside names by
+      value: ``C2`` before ``C10``); then the formula text; then the derivation's
+      order. First-order corners are thus ``ωz1``, ``ωz2`` … with no gap, the
+      factor of the lowest-numbered parts first (Type III: ``ωz1 = 1/(C1·R2)``,
+      ``ωz2 = 1/(C3·(R1 + R3))``, ``ωp1 = (C1 + C2)/(C1·C2·R2)``, ``ωp2 = 1/(C3·R3)``);
+    * numeric-only roots (a second-order factor with real roots, a factor of
+      degree 3 or more) have no formula to tell them apart: within their
+      factor's block, real roots are numbered by increasing frequency at the
+      current values (ties: as computed), and pairs likewise by ω0. Two roots of
+      one such factor can therefore swap labels when they cross; roots of
+      different factors never do.
+
+    A second-order factor with complex roots uses one ω0 label (its two ω numbers
+    stay reserved for when its roots are real); cancelled factors keep their
+    labels.
+    """
+    order = sorted(range(len(derivation.factors)),
+                   key=lambda i: (*_factor_key(derivation.factors[i]), i))
+    nxt = {("zero", "real"): 1, ("zero", "pair"): 1, ("pole", "real"): 1, ("pole", "pair"): 1}
+    blocks: dict[int, LabelBlock] = {}
+    for i in order:
+        f = derivation.factors[i]
+        tag = "z" if f.role == "zero" else "p"
+        n_real, n_pair = f.degree * f.multiplicity, (f.degree // 2) * f.multiplicity
+        r0, p0 = nxt[(f.role, "real")], nxt[(f.role, "pair")]
+        nxt[(f.role, "real")] += n_real
+        nxt[(f.role, "pair")] += n_pair
+        blocks[i] = LabelBlock(tuple(f"ω{tag}{r0 + k}" for k in range(n_real)),
+                               tuple(f"ω0{tag}{p0 + k}" for k in range(n_pair)))
+    return tuple(blocks[i] for i in range(len(derivation.factors)))
+
+
+def _block_labels(fs: list[Factor], block: LabelBlock, degree: int, copy: int) -> tuple[list[Factor], list[str]]:
+    """Numeric factors of one copy of a symbolic factor sorted by (ω, order), with their labels."""
+    fs = sorted(fs, key=lambda f: (f.omega_rad_s, f.order))
+    real = iter(block.real[copy * degree:(copy + 1) * degree])
+    pairs = iter(block.pairs[copy * (degree // 2):(copy + 1) * (degree // 2)])
+    return fs, [next(real) if f.order == 1 else next(pairs) for f in fs]
+
+
 class Evaluator:
     """Compiled evaluator of one topology.
 
@@ -206,6 +312,8 @@ class Evaluator:
         self._formulas = [_formulas(f) for f in derivation.factors]
         self._gain_formula = formula_text(derivation.gain_expr)
         self._kinds = {n: element_kind(n) for n in self.names}
+        #: The corner labels of each symbolic factor, fixed for the topology (:func:`corner_labels`).
+        self.label_blocks = corner_labels(derivation)
 
     def values_tuple(self, values: Mapping[str, float | str]) -> tuple[float, ...]:
         """Order and parse values for the compiled function (SI base units).
@@ -245,14 +353,17 @@ class Evaluator:
         c = self._fn(*vals)
         gain = float(c[0])
         factors: list[Factor] = []
+        labels: list[str] = []
         zeros: list[complex] = []
         poles: list[complex] = []
         origin = self.derivation.origin_order
-        for (role, degree, mult, off), (wf, qf) in zip(self._layout, self._formulas, strict=True):
+        for (role, degree, mult, off), (wf, qf), block in zip(self._layout, self._formulas, self.label_blocks,
+                                                              strict=True):
             c0 = c[off]
             if c0 == 0 or not math.isfinite(c0):
                 raise AnalysisError(f"a {role} factor has a zero constant term at these values; the stage degenerates")
             a = [c[off + k] / c0 for k in range(1, degree + 1)]
+            numeric = False
             if degree == 1:
                 r = -1.0 / a[0]
                 fs = [Factor(role, 1, abs(r), rhp=r > 0, formula=wf)]
@@ -273,8 +384,14 @@ class Evaluator:
                 split = factors_from_roots(roots, [], 1.0) if role == "zero" else factors_from_roots([], roots, 1.0)
                 note = f"real root of 1 + s/(Q·ω0) + s²/ω0² with ω0 = {wf}, Q = {qf}" if degree == 2 and wf else None
                 fs = [replace(f, formula=note) for f in split.factors]
-            for _ in range(mult):
-                factors.extend(fs)
+                numeric = True
+            for k in range(mult):
+                if numeric:
+                    fk, lk = _block_labels(fs, block, degree, k)
+                else:  # one closed-form factor: an ω label (order 1) or an ω0 label (a complex pair)
+                    fk, lk = fs, [block.real[k] if degree == 1 else block.pairs[k]]
+                factors.extend(fk)
+                labels.extend(lk)
                 (zeros if role == "zero" else poles).extend(roots)
         nz, npl = max(origin, 0), max(-origin, 0)
         fn = FactoredNumeric(gain, origin, tuple(factors), gain_formula=self._gain_formula)
@@ -283,6 +400,7 @@ class Evaluator:
             np.array([0j] * nz + zeros, dtype=complex),
             np.array([0j] * npl + poles, dtype=complex),
             dict(zip(self.names, vals, strict=True)),
+            tuple(labels),
         )
 
 

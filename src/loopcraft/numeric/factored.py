@@ -8,15 +8,20 @@ and as plain text in a terminal.
 A zero and a pole that coincide at the current values cancel (see
 :func:`loopcraft.numeric.factors.cancel_roots`): their rows are marked ``cancelled``
 and left out of the rendered form, which says instead "pole-zero
-cancellation at … Hz at these values". Rows keep the numbering of the full
-form, so a label (ωz1, ω0p2 …) means the same factor whatever the values.
-A pair on the jω axis shows Q = ∞.
+cancellation at … Hz at these values". A pair on the jω axis shows Q = ∞.
+
+Every row carries its corner label (ωz1, ω0p2 …), fixed once per topology by
+the symbolic factor it comes from (:func:`loopcraft.numeric.evaluator.corner_labels`),
+never by its rank in frequency: the label of 1/(C1·R2) stays the same however
+the values move, and cancelled rows keep theirs. Rows are listed in label order
+(zeros, then poles; ω rows, then ω0 rows; by number), so they do not move either.
 """
 
 from __future__ import annotations
 
 import html
 import math
+import re
 from collections import Counter
 from dataclasses import dataclass
 
@@ -24,10 +29,25 @@ import sympy as sp
 
 from ..model.values import format_value
 from ..symbolic.derivation import Derivation
-from .evaluator import TransferResult
+from .evaluator import TransferResult, corner_labels
 from .factors import JW_AXIS_REL_TOL, Factor
 
-__all__ = ["FactoredForm", "CornerRow"]
+__all__ = ["FactoredForm", "CornerRow", "label_sort_key", "q_label"]
+
+_LABEL_RE = re.compile(r"(ω0|ω|Q)([zp])([0-9]+)")
+
+
+def label_sort_key(label: str) -> tuple[int, int, int, str]:
+    """Display order of corner labels: zeros before poles, ω before ω0, then by number."""
+    m = _LABEL_RE.fullmatch(label)
+    if m is None:
+        return (2, 2, 0, label)
+    return (0 if m[2] == "z" else 1, 0 if m[1] == "ω" else 1, int(m[3]), label)
+
+
+def q_label(label: str) -> str | None:
+    """The Q label of an ω0 label (``"ω0p1"`` → ``"Qp1"``); None for a first-order ``"ωz1"``."""
+    return "Q" + label[2:] if label.startswith("ω0") else None
 
 
 @dataclass(frozen=True)
@@ -51,6 +71,9 @@ class CornerRow:
     cancelled : bool
         True when a factor of the other role cancels this one at these values
         (the row is not part of the reduced transfer function).
+    label : str
+        The corner label, ``"ωz1"`` (order 1) or ``"ω0p1"`` (order 2), fixed
+        per topology (see :func:`loopcraft.numeric.evaluator.corner_labels`).
     """
 
     role: str
@@ -61,6 +84,12 @@ class CornerRow:
     formula: str | None
     q_formula: str | None
     cancelled: bool = False
+    label: str = ""
+
+    @property
+    def q_label(self) -> str | None:
+        """``"Qp1"`` for the row ``"ω0p1"``; None for a first-order row."""
+        return q_label(self.label)
 
     @property
     def f_hz(self) -> float:
@@ -85,12 +114,13 @@ class CornerRow:
         return self.formula is None
 
     def to_dict(self) -> dict:
-        """JSON-ready form: role, order, f_hz, q, formula (the CLI's layout).
+        """JSON-ready form: label, role, order, f_hz, q, formula (the CLI's layout).
 
         ``q`` is null for a first-order factor and for a pair on the jω axis;
         ``q_infinite`` is true for the latter (Q = ∞, zero damping).
         """
         return {
+            "label": self.label,
             "role": self.role,
             "order": self.order,
             "f_hz": self.f_hz,
@@ -102,8 +132,24 @@ class CornerRow:
         }
 
 
-def _row(f: Factor, cancelled: bool = False) -> CornerRow:
-    return CornerRow(f.role, f.order, f.omega_rad_s, f.q, f.rhp, f.formula, f.q_formula, cancelled)
+def _row(f: Factor, cancelled: bool, label: str) -> CornerRow:
+    return CornerRow(f.role, f.order, f.omega_rad_s, f.q, f.rhp, f.formula, f.q_formula, cancelled, label)
+
+
+def _rank_labels(fs: tuple[Factor, ...]) -> list[str]:
+    """Labels for factors that came without any (a result built from roots, no topology behind it).
+
+    The only rule left without a derivation: each role and kind numbered by
+    increasing frequency (ties in input order).
+    """
+    out = [""] * len(fs)
+    for role, tag in (("zero", "z"), ("pole", "p")):
+        for order, kind in ((1, "ω"), (2, "ω0")):
+            mine = sorted((i for i, f in enumerate(fs) if f.role == role and f.order == order),
+                          key=lambda i: fs[i].omega_rad_s)
+            for n, i in enumerate(mine, start=1):
+                out[i] = f"{kind}{tag}{n}"
+    return out
 
 
 def _pair_text(pole: complex) -> str:
@@ -154,21 +200,26 @@ class FactoredForm:
 
     @property
     def corners(self) -> tuple[CornerRow, ...]:
-        """Every factor, zeros then poles, each sorted by frequency; cancelled ones marked.
+        """Every factor with its label, in label order (:func:`label_sort_key`); cancelled ones marked.
 
-        The full form's rows, so the numbering does not shift when values make
-        a pair cancel; :attr:`reduced_corners` leaves the cancelled rows out.
+        The full form's rows: a row keeps its label when values make it cancel;
+        :attr:`reduced_corners` leaves the cancelled rows out.
         """
         fs = self.result.factored.factors
+        labels = self.result.labels
+        if len(labels) != len(fs):
+            labels = tuple(_rank_labels(fs))
         kept = Counter(id(f) for f in self.result.reduced.factors)  # the reduced form keeps the same objects
-        zs = sorted((f for f in fs if f.role == "zero"), key=lambda f: f.omega_rad_s)
-        ps = sorted((f for f in fs if f.role == "pole"), key=lambda f: f.omega_rad_s)
         rows = []
-        for f in zs + ps:
+        for f, label in zip(fs, labels, strict=True):
             keep = kept[id(f)] > 0
             kept[id(f)] -= keep
-            rows.append(_row(f, cancelled=not keep))
-        return tuple(rows)
+            rows.append(_row(f, not keep, label))
+        return tuple(sorted(rows, key=lambda r: label_sort_key(r.label)))
+
+    def corner(self, label: str) -> CornerRow | None:
+        """The row labelled ``label`` (``"ωz1"``, ``"ω0p1"``), or None when the form has none."""
+        return next((c for c in self.corners if c.label == label), None)
 
     @property
     def reduced_corners(self) -> tuple[CornerRow, ...]:
@@ -200,11 +251,13 @@ class FactoredForm:
 
     # -- rendering ---------------------------------------------------------
     def symbolic_latex(self) -> str:
-        """LaTeX of the normalized factored form in the component symbols."""
+        """LaTeX of the normalized factored form in the component symbols, factors in label order."""
         d = self.derivation
         num: list[str] = []
         den: list[str] = []
-        for f in d.factors:
+        blocks = corner_labels(d)
+        for i in sorted(range(len(d.factors)), key=lambda i: label_sort_key(blocks[i].real[0])):
+            f = d.factors[i]
             t = sp.latex(f.normalized_expr(), order="rev-lex") if f.degree > 0 else "1"
             t = rf"\left({t}\right)" + (f"^{{{f.multiplicity}}}" if f.multiplicity > 1 else "")
             (num if f.role == "zero" else den).append(t)
@@ -220,15 +273,13 @@ class FactoredForm:
         return rf"H(s) = {k} \cdot \frac{{{top}}}{{{' '.join(den)}}}"
 
     def _corner_lines(self) -> list[tuple[str, str, str, str]]:
-        """(tag, name, formula, value) of the rows shown: the reduced form, full-form numbering."""
+        """(tag, label, formula, value) of the rows shown: the reduced form, each row with its own label."""
         rows = []
-        counts = {"zero": 0, "pole": 0}
         for c in self.corners:
-            counts[c.role] += 1
             if c.cancelled:
                 continue
-            tag = ("z" if c.role == "zero" else "p") + str(counts[c.role])
-            name = f"ω{tag}" if c.order == 1 else f"ω0{tag}"
+            name = c.label
+            tag = name.lstrip("ω0")
             formula = c.formula if c.formula else "numeric at current values"
             value = f"{c.omega_rad_s:.4g} rad/s ({format_value(c.f_hz, 'Hz')})"
             if c.order == 2:

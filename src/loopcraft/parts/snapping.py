@@ -204,20 +204,17 @@ def design_quantities(design: Design) -> list[tuple[str, str, str, float]]:
     """
     ff = design.factored()
     out: list[tuple[str, str, str, float]] = []
-    counts = {"zero": 0, "pole": 0}
     seen: dict[tuple[str, int, str], int] = {}
     for c in ff.corners:
-        counts[c.role] += 1
-        tag = ("z" if c.role == "zero" else "p") + str(counts[c.role])
+        # The corner's own label (fixed once per topology, see numeric.evaluator.corner_labels).
         ident = (c.role, c.order, c.formula or "numeric")
         occ = seen.get(ident, 0)
         seen[ident] = occ + 1
         base = f"corner:{c.role}:{c.order}:{ident[2]}:{occ}"
-        name = f"ω{tag}" if c.order == 1 else f"ω0{tag}"
-        label = f"{name} = {c.formula}" if c.formula else f"{name} (numeric)"
+        label = f"{c.label} = {c.formula}" if c.formula else f"{c.label} (numeric)"
         out.append((base + ":f_hz", label, "Hz", c.f_hz))
         if c.order == 2 and c.q is not None:
-            qlabel = f"Q{tag}" + (f" = {c.q_formula}" if c.q_formula else "")
+            qlabel = (c.q_label or "Q") + (f" = {c.q_formula}" if c.q_formula else "")
             out.append((base + ":q", qlabel, "", c.q))
     tr = ff.result
     if ff.origin_order == 0:

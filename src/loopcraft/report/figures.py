@@ -15,6 +15,8 @@ from collections.abc import Sequence
 import numpy as np
 
 from .._text import mathtext_plain
+from ..analysis.analyzer import Analyzer
+from ..analysis.band import display_band_hz
 from ..errors import LoopcraftError
 from ..model.values import format_value
 
@@ -43,20 +45,25 @@ def _matplotlib():
 def figure_band_hz(design) -> tuple[float, float]:
     """Frequency band (Hz) of the record's Bode plot.
 
-    One decade beyond the extreme corners of the stage and the plant, widened
-    to the op-amp's gain-bandwidth when a real op-amp is given (where the actual
-    response leaves the ideal one).
+    The display band (:func:`loopcraft.analysis.band.display_band_hz`): whole decades,
+    two beyond the extreme corners of the ideal stage and the plant, the op-amp's
+    gain-bandwidth when a real op-amp is given (where the actual response leaves the
+    ideal one), the amplifier loop's crossover and every crossover and phase crossover of
+    the loop with the plant, so that each margin the record states is drawn. The default
+    grid of a Monte Carlo spread (:func:`loopcraft.analysis.tolerance.monte_carlo`) covers
+    the same band.
     """
-    fs = [f.f_hz for f in design.transfer().factored.factors]
-    if design.plant is not None:
-        fs += [f.f_hz for f in design.plant.factored().factors]
-    if not fs:
-        fs = [1e3]
-    lo = 10.0 ** (math.floor(math.log10(min(fs))) - 1)
-    hi = 10.0 ** (math.ceil(math.log10(max(fs))) + 1)
-    if design.opamp is not None and not design.opamp.is_ideal and math.isfinite(design.opamp.gbw_hz):
-        hi = max(hi, 10.0 ** math.ceil(math.log10(design.opamp.gbw_hz)))
-    return max(lo, 1e-3), min(hi, 1e12)
+    a = Analyzer(design, f_hz=np.array([1.0, 10.0])).update()  # margins search their own bands
+    extra: list[float] = []
+    if design.opamp is not None and not design.opamp.is_ideal:
+        extra.append(design.opamp.gbw_hz)
+        amp = a.actual.amplifier_loop if a.actual is not None else None
+        if amp is not None and amp.crossover_hz is not None:
+            extra.append(amp.crossover_hz)
+    if a.loop is not None:
+        extra += [c.f_hz for c in a.loop.margins.crossovers] + [g.f_hz for g in a.loop.margins.gain_margins]
+    plant = design.plant.factored() if design.plant is not None else None
+    return display_band_hz(a.factored, plant, extra_hz=tuple(extra))
 
 
 def _png(fig, canvas) -> bytes:

@@ -474,16 +474,13 @@ def _stage_text(d: Design) -> str:
 
 def _corner_rows(ff) -> list[tuple[str, str, str]]:
     rows = []
-    counts = {"zero": 0, "pole": 0}
-    for c in ff.corners:  # labels as in FactoredForm: ωz1, ωp1, ω0p1 (Qp1)
-        counts[c.role] += 1
-        tag = ("z" if c.role == "zero" else "p") + str(counts[c.role])
-        if getattr(c, "cancelled", False):
+    for c in ff.corners:  # each row's own label, fixed per topology: ωz1, ωp1, ω0p1 (Qp1)
+        if c.cancelled:
             continue  # shown as a cancellation line, not as a corner
-        name = f"ω{tag}" if c.order == 1 else f"ω0{tag}"
+        name = c.label
         value = f"{c.omega_rad_s:.4g} rad/s ({format_value(c.f_hz, 'Hz')})"
         if c.order == 2:
-            value += f", Q{tag} = {c.q_text}" + (f" (Q = {c.q_formula})" if c.q_formula else "")
+            value += f", {c.q_label} = {c.q_text}" + (f" (Q = {c.q_formula})" if c.q_formula else "")
             if c.q_infinite:
                 value += ", on the jω axis"
         if c.rhp:

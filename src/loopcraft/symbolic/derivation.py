@@ -18,18 +18,23 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from functools import cache
+from typing import TYPE_CHECKING
 
 import sympy as sp
 
 from ..errors import TopologyError
 from .symbols import S, component_symbol
 
+if TYPE_CHECKING:
+    from ..model.stage import Stage
+
 __all__ = ["SymbolicFactor", "Derivation", "derive", "formula_text"]
 
 
 def formula_text(expr: sp.Expr) -> str:
     """Plain-text formula with ``·`` for products and ``^`` for powers, e.g. ``1/(C1·R2)``."""
-    return sp.sstr(expr).replace("**", "^").replace("*", "·")
+    text: str = sp.sstr(expr)
+    return text.replace("**", "^").replace("*", "·")
 
 
 def _root_text(expr: sp.Expr) -> str:
@@ -192,7 +197,7 @@ def _derive(transfer: sp.Expr, names: tuple[str, ...]) -> Derivation:
     return Derivation(names, transfer, sp.expand(num), sp.expand(den), gain, on - od, tuple(fn + fd))
 
 
-def derive(stage) -> Derivation:
+def derive(stage: Stage) -> Derivation:
     """Derive (once per topology, cached on the frozen stage) the factored symbolic transfer of a stage.
 
     Parameters
@@ -220,5 +225,5 @@ def derive(stage) -> Derivation:
 
 
 @cache
-def _derive_stage(stage) -> Derivation:
+def _derive_stage(stage: Stage) -> Derivation:
     return _derive(stage.transfer_expr(), tuple(stage.component_names))

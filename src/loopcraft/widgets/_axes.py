@@ -15,6 +15,7 @@ import math
 
 import numpy as np
 
+from ..analysis.band import display_band_hz
 from ..model.values import format_value
 from ..numeric.factors import FactoredNumeric
 
@@ -45,14 +46,14 @@ MAX_BAND_DECADES = 9
 
 def view_band_hz(stage: FactoredNumeric, plant: FactoredNumeric | None = None,
                  extra_hz: tuple[float, ...] = ()) -> tuple[float, float]:
-    """The frequency band the explorer draws, Hz.
+    """The frequency band the explorer draws, Hz: the package's one display-band policy.
 
-    Two decades (rounded out to whole decades) beyond the corners of the
-    ideal stage and the plant; ``extra_hz`` (op-amp GBW, crossovers) widens
-    it upward. Wider than :data:`MAX_BAND_DECADES` decades, the top is
-    pulled in to one decade above the highest frequency of interest, then
-    the bottom is raised. An op-amp's dominant pole is deliberately not an
-    anchor: it sits decades below anything the stage does.
+    :func:`loopcraft.analysis.band.display_band_hz` anchored on the corners of
+    the ideal stage and the plant, with ``extra_hz`` (op-amp GBW, crossovers)
+    widening it upward only, capped at :data:`MAX_BAND_DECADES` decades (the
+    top is then pulled in to one decade above the highest frequency of
+    interest, then the bottom raised). An op-amp's dominant pole is
+    deliberately not an anchor: it sits decades below anything the stage does.
 
     Parameters
     ----------
@@ -67,20 +68,7 @@ def view_band_hz(stage: FactoredNumeric, plant: FactoredNumeric | None = None,
     -------
     (f_lo_hz, f_hi_hz)
     """
-    fs = [f.f_hz for f in stage.factors] + ([f.f_hz for f in plant.factors] if plant is not None else [])
-    if not fs:
-        # No corner: anchor on the unity-gain frequency of K·s^n, |K|·ω^n = 1.
-        n = stage.origin_order
-        fs = [abs(stage.gain) ** (-1.0 / n) / (2 * math.pi)] if n else [1e3]
-    top = [x for x in (*fs, *extra_hz) if math.isfinite(x) and x > 0]
-    k_lo = math.floor(math.log10(min(fs))) - 2
-    k_top = math.ceil(math.log10(max(top)))
-    k_hi = k_top + 2
-    if k_hi - k_lo > MAX_BAND_DECADES:
-        k_hi = max(k_top + 1, k_lo + MAX_BAND_DECADES)
-    if k_hi - k_lo > MAX_BAND_DECADES:
-        k_lo = k_hi - MAX_BAND_DECADES
-    return max(10.0**k_lo, 1e-3), min(10.0**k_hi, 1e12)
+    return display_band_hz(stage, plant, above_hz=extra_hz, max_decades=MAX_BAND_DECADES)
 
 
 def view_grid_hz(stage: FactoredNumeric, plant: FactoredNumeric | None = None,

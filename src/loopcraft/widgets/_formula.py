@@ -9,20 +9,22 @@ The symbolic form
 is typeset once per topology (an ``HTMLMath`` widget, MathJax delimiters as
 in :meth:`loopcraft.numeric.factored.FactoredForm._repr_html_`); the table below it
 gives each corner's formula and its value at the current component values
-and is rebuilt only when its text changes. Corners are numbered as the
-factored form numbers them (zeros then poles, each by increasing frequency:
-ωz1, ωp1, ω0p1 with Qp1). The rows that the component being dragged moves,
-by :meth:`loopcraft.analysis.sensitivity.Sensitivity.moved_by`, are highlighted.
+and is rebuilt only when its text changes. Each row shows the corner's own
+label (ωz1, ωp1, ω0p1 with Qp1), fixed per topology by its formula
+(:func:`loopcraft.numeric.evaluator.corner_labels`): dragging a part never
+renumbers a row nor moves it in the table. The rows that the component being
+dragged moves, by :meth:`loopcraft.analysis.sensitivity.Sensitivity.moved_by`,
+are highlighted; sensitivity rows carry the same labels, so they are matched
+by label, never by value.
 
 A zero and a pole that cancel at the current values are left out of the
-table (the other rows keep their numbers) and named below it: "pole-zero
+table (the other rows keep their labels) and named below it: "pole-zero
 cancellation at … Hz at these values". A pair on the jω axis shows Q = ∞.
 """
 
 from __future__ import annotations
 
 import html
-import math
 import re
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -58,51 +60,23 @@ class CornerLine:
 
 
 def corner_lines(form: FactoredForm) -> tuple[CornerLine, ...]:
-    """Number the corners as the factored form does (zeros, then poles, by frequency).
+    """The table rows: each corner with its own label, in the form's label order.
 
-    Rows that cancel at these values are left out; the others keep the
-    numbers of the full form.
+    Rows that cancel at these values are left out; the others keep their labels.
     """
-    counts = {"zero": 0, "pole": 0}
-    out = []
-    for c in form.corners:
-        counts[c.role] += 1
-        if c.cancelled:
-            continue
-        tag = ("z" if c.role == "zero" else "p") + str(counts[c.role])
-        out.append(CornerLine(f"ω{tag}" if c.order == 1 else f"ω0{tag}", c.role, c))
-    return tuple(out)
+    return tuple(CornerLine(c.label, c.role, c) for c in form.corners if not c.cancelled)
 
 
 def highlighted_labels(lines: Sequence[CornerLine], sens: Sensitivity, component: str) -> frozenset[str]:
     """Labels of the table rows that ``component`` moves (|S| > 0.05 on ω, ω0 or Q).
 
-    Sensitivity rows are matched to table rows by role and value (so a
-    corner keeps its highlight however the numbering shifts), falling back to
-    the label when no value matches.
+    Sensitivity rows and table rows carry the same per-topology labels, so they
+    are matched by label alone (two corners at the same frequency stay apart);
+    a Q row moves the row of its ω0 label.
     """
     moved = set(sens.moved_by(component))
-    rows = {r.label: r for r in sens.rows}
-    # A Q row moves the factor of its ω0 row.
-    for label in list(moved):
-        if label.startswith("Q"):
-            moved.add("ω0" + label[1:])
-    out = set()
-    for label in moved:
-        r = rows.get(label)
-        if r is None or r.quantity != "omega":
-            continue
-        best = None
-        for ln in lines:
-            if ln.role == r.role and r.value > 0:
-                d = abs(math.log(ln.corner.omega_rad_s / r.value))
-                if d < 1e-6 and (best is None or d < best[0]):
-                    best = (d, ln.label)
-        if best is not None:
-            out.add(best[1])
-        elif any(ln.label == label for ln in lines):
-            out.add(label)
-    return frozenset(out)
+    moved |= {"ω0" + label[1:] for label in moved if label.startswith("Q")}
+    return frozenset(ln.label for ln in lines if ln.label in moved)
 
 
 def _uses(formula: str, component: str) -> bool:

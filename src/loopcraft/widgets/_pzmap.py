@@ -16,6 +16,12 @@ keeps the origin at the origin and puts one decade per unit beyond ``x0``;
 so the axes do not jump while sliders move. Tick labels give the real
 values; the axis labels say the scale is signed-log.
 
+The view holds no choice of its own: the unit, the zoom mode, ``x0`` and the
+axis ranges come in a :class:`~loopcraft.widgets._state.PlaneState` (the
+explorer's one state, see :func:`plane_for`), and :meth:`PoleZeroView.frame`
+is a pure function of the analysis and that state. The unit and zoom toggles
+are inputs the explorer observes; the view never reads them back.
+
 Coincident roots are drawn once with their multiplicity written beside the
 marker. A zero and a pole that cancel at the current values (see
 :func:`loopcraft.numeric.factors.cancel_roots`) are not drawn as × and ○ but as one
@@ -31,6 +37,7 @@ import html
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field
+from functools import lru_cache
 
 import bqplot as bq
 import ipywidgets as widgets
@@ -40,6 +47,7 @@ from ..analysis.analyzer import Analysis
 from ..analysis.sensitivity import CornerSensitivity, Sensitivity
 from ..model.values import format_value
 from ..numeric.factors import CANCEL_REL_TOL, JW_AXIS_REL_TOL
+from ._state import PlaneState
 from ._sync import TraitWriter
 from ._theme import AXIS_TICK_STYLE, COLORS, CSS_CLASS, PZ_MARGIN
 
@@ -48,6 +56,7 @@ __all__ = [
     "inverse_signed_log",
     "group_roots",
     "reference_scale",
+    "plane_for",
     "PzFrame",
     "PoleZeroView",
     "MOVER_THRESHOLD",
@@ -128,6 +137,23 @@ def reference_scale(roots_rad_s: np.ndarray, unit: str) -> float:
     return 10.0 ** (math.floor(math.log10(parts.min())) - 1)
 
 
+def plane_for(a: Analysis, unit: str = "Hz", zoom: str = "auto") -> PlaneState:
+    """The s-plane state of a newly shown design: ``x0`` from its drawn roots, ranges to fit.
+
+    Parameters
+    ----------
+    a : Analysis
+        The design's analysis at the values it is shown with (roots in rad/s).
+    unit : {"Hz", "rad/s"}
+        The unit to draw in.
+    zoom : {"auto", "manual"}
+        The zoom mode.
+    """
+    roots = _drawn_roots(a)
+    return PlaneState(unit=unit, zoom=zoom, x0_hz=reference_scale(roots, "Hz"),
+                      x0_rad_s=reference_scale(roots, "rad/s"))
+
+
 def _tick_label(k: int, x0: float) -> str:
     if k == 0:
         return "0"
@@ -136,7 +162,13 @@ def _tick_label(k: int, x0: float) -> str:
     return (_MINUS if k < 0 else "") + text
 
 
+@lru_cache(maxsize=64)
 def _ticks(lo: float, hi: float, x0: float) -> tuple[np.ndarray, dict[str, str]]:
+    """Integer ticks in ``[lo, hi]`` (signed-log units) and their labels in the unit of ``x0``.
+
+    Cached (a pure function of its arguments): the same range gives the very same
+    objects, so the trait writer skips them. The results are never mutated.
+    """
     ks = list(range(math.ceil(lo), math.floor(hi) + 1))
     every = 1 if len(ks) <= 9 else 2
     ks = [k for k in ks if k % every == 0]
@@ -183,6 +215,8 @@ class PzFrame:
         Positions of the cancelled zero/pole pairs (signed-log coordinates).
     cancel_groups : tuple of (complex, int)
         Each cancelled pair's pole (rad/s) and multiplicity.
+    zoom : {"auto", "manual"}
+        The zoom mode (manual lets the browser pan and zoom the figure).
     """
 
     unit: str
@@ -198,6 +232,7 @@ class PzFrame:
     cancel_x: np.ndarray = field(default_factory=lambda: np.zeros(0))
     cancel_y: np.ndarray = field(default_factory=lambda: np.zeros(0))
     cancel_groups: tuple[tuple[complex, int], ...] = ()
+    zoom: str = "auto"
 
 
 def _match_rows(root: complex, role: str, rows: Sequence[CornerSensitivity]) -> list[CornerSensitivity]:
@@ -299,12 +334,16 @@ class PoleZeroView:
     cancelled : bqplot.Scatter
         Hollow diamonds where a zero and a pole cancel at the current values.
     units : ipywidgets.ToggleButtons
-        "Hz" (s/2π) or "rad/s".
+        "Hz" (s/2π) or "rad/s". An input: the explorer observes it and puts the
+        choice into its state; the view does not read it.
     zoom : ipywidgets.ToggleButtons
-        "auto" (fit the roots) or "manual" (drag to pan, wheel to zoom on the figure).
+        "auto" (fit the roots) or "manual" (drag to pan, wheel to zoom on the figure);
+        an input like ``units``.
     readout : ipywidgets.HTML
         The description of the last hovered root.
     box : ipywidgets.VBox
+    x0, unit : float, str
+        The signed-log reference and unit of the frame drawn last (what is on screen).
     """
 
     def __init__(self) -> None:
@@ -368,88 +407,101 @@ class PoleZeroView:
         self.cancel_mult: tuple[int, ...] = ()
         self._groups: dict[str, tuple[tuple[complex, int], ...]] = {"pole": (), "zero": (), "cancelled": ()}
         self._last: tuple[Analysis, Sensitivity | None] | None = None
-        self._fresh = True
+        self._axes_drawn: tuple | None = None  # (unit, zoom, x0, ranges) of the axes last assigned
         self._pan = bq.interacts.PanZoom(scales={"x": [self.x_scale], "y": [self.y_scale]})
         self.poles.on_hover(lambda _m, content: self._hovered("pole", content))
         self.zeros.on_hover(lambda _m, content: self._hovered("zero", content))
         self.cancelled.on_hover(lambda _m, content: self._hovered("cancelled", content))
-        self.units.observe(self._on_units, names="value")
-        self.zoom.observe(self._on_zoom, names="value")
 
     @staticmethod
     def _hint() -> str:
         return (f'<span style="color:{COLORS["muted"]}; font-size:12px">'
                 "Hover a marker: value and the parts that set it.</span>")
 
-    # -- design-level state ----------------------------------------------------------
-    def set_design(self, a: Analysis) -> None:
-        """Fix the signed-log reference for a new design (from its roots at the current values)."""
-        self.x0 = reference_scale(_drawn_roots(a), self.units.value)
-        self._fresh = True
-
     # -- compute ----------------------------------------------------------------------
-    def frame(self, a: Analysis, sens: Sensitivity | None) -> PzFrame:
-        """Compute marker positions, multiplicities, hover texts and ranges (no mark touched)."""
-        unit = self.units.value
-        div = _TWO_PI if unit == "Hz" else 1.0
+    def frame(self, a: Analysis, sens: Sensitivity | None, plane: PlaneState) -> PzFrame:
+        """Marker positions, multiplicities and axis ranges: a pure function of ``a`` and ``plane``.
+
+        No widget is read or touched. With ``plane.zoom == "auto"`` the ranges
+        fit the roots, keeping ``plane``'s ranges while the roots fit them
+        snugly; with "manual" ``plane``'s ranges are kept. Ranges that are None
+        are fitted afresh in either mode.
+
+        Parameters
+        ----------
+        a : Analysis
+            Roots in rad/s.
+        sens : Sensitivity or None
+            Not used for the positions (the hover texts use it at draw time).
+        plane : PlaneState
+            Unit (Hz or rad/s), signed-log reference ``x0`` in that unit, zoom mode, ranges.
+        """
+        div = plane.rad_s_per_unit
+        x0 = plane.x0
         data = {}
         tr = a.transfer
         for role, roots in (("pole", tr.reduced_poles), ("zero", tr.reduced_zeros), ("cancelled", tr.cancelled)):
             groups = tuple(group_roots(roots))
             r = np.array([g[0] for g in groups], dtype=complex)
-            data[role] = (signed_log(r.real / div, self.x0), signed_log(r.imag / div, self.x0), groups)
+            data[role] = (signed_log(r.real / div, x0), signed_log(r.imag / div, x0), groups)
         xs = np.concatenate([data["pole"][0], data["zero"][0], data["cancelled"][0]])
         ys = np.concatenate([data["pole"][1], data["zero"][1], data["cancelled"][1]])
-        x_new = _fit(xs, 0.8, 0.6, symmetric=False)
-        y_new = _fit(ys, 0.8, 0.7, symmetric=True)
-        if self.zoom.value == "auto" and not self._fresh:
-            x_range = _keep((self.x_scale.min, self.x_scale.max), x_new, xs)
-            y_range = _keep((self.y_scale.min, self.y_scale.max), y_new, ys)
-        elif self.zoom.value == "auto":
-            x_range, y_range = x_new, y_new
+        if plane.x_range is None or plane.y_range is None:
+            x_range = _fit(xs, 0.8, 0.6, symmetric=False)
+            y_range = _fit(ys, 0.8, 0.7, symmetric=True)
+        elif plane.zoom == "auto":
+            x_range = _keep(plane.x_range, _fit(xs, 0.8, 0.6, symmetric=False), xs)
+            y_range = _keep(plane.y_range, _fit(ys, 0.8, 0.7, symmetric=True), ys)
         else:
-            x_range = (self.x_scale.min, self.x_scale.max)
-            y_range = (self.y_scale.min, self.y_scale.max)
+            x_range, y_range = plane.x_range, plane.y_range
         p, z, c = data["pole"], data["zero"], data["cancelled"]
-        return PzFrame(unit, self.x0, p[0], p[1], z[0], z[1], p[2], z[2], x_range, y_range, c[0], c[1], c[2])
+        return PzFrame(plane.unit, x0, p[0], p[1], z[0], z[1], p[2], z[2], x_range, y_range, c[0], c[1], c[2],
+                       plane.zoom)
 
     # -- draw -----------------------------------------------------------------------------
     def draw(self, fr: PzFrame, source: tuple[Analysis, Sensitivity | None]) -> None:
-        """Assign a frame to the marks (one message per changed mark).
+        """Assign a frame to the marks, axes and ticks (one message per changed widget, none if unchanged).
 
         ``source`` is the analysis and sensitivities the frame came from; they are
-        kept for hover descriptions and for redrawing on a change of unit or zoom.
+        kept for the hover descriptions.
         """
-        if fr.unit != self.unit or self._fresh:
-            self._label_axes(fr.unit)
-        self._set_range(self.x_scale, self.x_axis, fr.x_range, fr.x0)
-        self._set_range(self.y_scale, self.y_axis, fr.y_range, fr.x0)
+        w = self._writer
+        axes = (fr.unit, fr.zoom, fr.x0, fr.x_range, fr.y_range)
+        if axes != self._axes_drawn:  # most slider moves keep the axes: skip them outright
+            w.set(self.x_axis, label=f"σ ({fr.unit}), signed-log scale")
+            w.set(self.y_axis, label=f"jω ({fr.unit}), signed-log scale")
+            self._set_range(self.x_scale, self.x_axis, fr.x_range, fr.x0)
+            self._set_range(self.y_scale, self.y_axis, fr.y_range, fr.x0)
+            w.set(self.fig, interaction=self._pan if fr.zoom == "manual" else None)
+            self._axes_drawn = axes
         for mark, x, y, groups in ((self.poles, fr.pole_x, fr.pole_y, fr.pole_groups),
                                    (self.zeros, fr.zero_x, fr.zero_y, fr.zero_groups),
                                    (self.cancelled, fr.cancel_x, fr.cancel_y, fr.cancel_groups)):
             names = np.array([str(m) if m > 1 else "" for _r, m in groups], dtype=str)
-            self._writer.set(mark, x=x, y=y, names=names)
+            w.set(mark, x=x, y=y, names=names)
         self.pole_mult = tuple(m for _r, m in fr.pole_groups)
         self.zero_mult = tuple(m for _r, m in fr.zero_groups)
         self.cancel_mult = tuple(m for _r, m in fr.cancel_groups)
         self._groups = {"pole": fr.pole_groups, "zero": fr.zero_groups, "cancelled": fr.cancel_groups}
         self._last = source
         self.unit = fr.unit
+        self.x0 = fr.x0
         note = (f'<span style="color:{COLORS["muted"]}; font-size:11.5px">Axes: ±(1 + log10(|x|/x0)) beyond '
                 f"x0 = {html.escape(format_value(fr.x0, fr.unit))}, linear inside.</span>")
-        self._writer.set(self.note, value=note)
-        self._fresh = False
-
-    def _label_axes(self, unit: str) -> None:
-        self._writer.set(self.x_axis, label=f"σ ({unit}), signed-log scale")
-        self._writer.set(self.y_axis, label=f"jω ({unit}), signed-log scale")
+        w.set(self.note, value=note)
 
     def _set_range(self, scale: bq.LinearScale, axis: bq.Axis, rng: tuple[float, float], x0: float) -> None:
+        """The scale's range and the axis's ticks, both from the frame (the ticks never lag the range)."""
         lo, hi = float(rng[0]), float(rng[1])
-        moved = self._writer.set(scale, min=lo, max=hi)
-        if moved or self._fresh:
-            values, labels = _ticks(lo, hi, x0)
-            self._writer.set(axis, tick_values=values, tick_labels=labels)
+        self._writer.set(scale, min=lo, max=hi)
+        values, labels = _ticks(lo, hi, float(x0))
+        self._writer.set(axis, tick_values=values, tick_labels=labels)
+
+    def forget_scales(self) -> None:
+        """The browser moved the scales (pan or wheel zoom): the next draw assigns them again."""
+        self._writer.forget(self.x_scale)
+        self._writer.forget(self.y_scale)
+        self._axes_drawn = None
 
     # -- events ----------------------------------------------------------------------------
     def _hovered(self, role: str, content: dict) -> None:
@@ -476,26 +528,6 @@ class PoleZeroView:
         text = self.describe(role, index)
         self.tooltip.value = text
         self.readout.value = text
-
-    def _on_units(self, change) -> None:
-        if self._last is None:
-            return
-        a, sens = self._last
-        self.x0 = reference_scale(_drawn_roots(a), change["new"])
-        self._fresh = True
-        self.draw(self.frame(a, sens), (a, sens))
-
-    def _on_zoom(self, change) -> None:
-        if change["new"] == "auto":
-            self.fig.interaction = None
-            # Panning moved the scales from the browser: what the writer last set is stale.
-            self._writer.forget(self.x_scale)
-            self._writer.forget(self.y_scale)
-            if self._last is not None:
-                self._fresh = True
-                self.draw(self.frame(*self._last), self._last)
-        else:
-            self.fig.interaction = self._pan
 
     # -- read back ---------------------------------------------------------------------------
     def state(self) -> dict:

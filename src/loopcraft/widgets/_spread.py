@@ -4,12 +4,18 @@ The spread is a seeded Monte Carlo run (:func:`loopcraft.analysis.tolerance.mont
 over the design's own ``tolerances`` section or a stock choice. It is not on
 the slider path: the explorer refreshes it when the overlay is switched on,
 when the design changes, and once a slider has come to rest.
+
+Two steps, so the clouds can never sit in other coordinates than the roots:
+:meth:`SpreadOverlay.run` does the Monte Carlo run (bands, and the sample
+roots in rad/s), and :func:`spread_frame` maps a run onto the s-plane with the
+same :class:`~loopcraft.widgets._state.PlaneState` (unit, ``x0``) the pole-zero
+map is drawn with — a pure function the explorer calls in its one update,
+also when only the unit changes.
 """
 
 from __future__ import annotations
 
 import html
-import math
 from dataclasses import dataclass
 from typing import Any
 
@@ -21,10 +27,12 @@ from ..analysis.tolerance import monte_carlo
 from ..design import Design
 from ..errors import LoopcraftError
 from ._pzmap import PoleZeroView, signed_log
+from ._state import PlaneState
 from ._sync import TraitWriter
 from ._theme import COLORS
 
-__all__ = ["SpreadOverlay", "SpreadFrame", "SPREAD_CHOICES", "SPREAD_SAMPLES", "CLOUD_SAMPLES"]
+__all__ = ["SpreadOverlay", "SpreadRun", "SpreadFrame", "spread_frame", "SPREAD_CHOICES", "SPREAD_SAMPLES",
+           "CLOUD_SAMPLES"]
 
 #: Overlay choices: label, key. "design" uses the design file's own tolerances section.
 SPREAD_CHOICES = (("off", "off"), ("design tolerances", "design"), ("R 1 %, C 5 %", "r1c5"), ("R 5 %, C 10 %", "r5c10"))
@@ -33,6 +41,37 @@ _STOCK = {"r1c5": {"R*": "1%", "C*": "5%", "L*": "10%"}, "r5c10": {"R*": "5%", "
 #: Monte Carlo samples behind the bands, and how many of them draw the root clouds.
 SPREAD_SAMPLES = 400
 CLOUD_SAMPLES = 120
+
+
+@dataclass(frozen=True)
+class SpreadRun:
+    """One Monte Carlo run of the overlay (Hz, dB, degrees; roots in rad/s, origin roots left out).
+
+    Attributes
+    ----------
+    curve : {"loop", "actual", "exact"}
+        The curve the bands surround.
+    f_hz : ndarray
+        The frequency grid, Hz.
+    mag_lo_db, mag_hi_db : ndarray
+        The magnitude envelope, dB.
+    phase_lo_deg, phase_hi_deg : ndarray
+        The phase envelope, degrees.
+    pole_roots_rad_s, zero_roots_rad_s : ndarray of complex
+        Every non-zero pole and zero of the first :data:`CLOUD_SAMPLES` samples, rad/s.
+    note_html : str
+        The line shown beside the choice.
+    """
+
+    curve: str
+    f_hz: np.ndarray
+    mag_lo_db: np.ndarray
+    mag_hi_db: np.ndarray
+    phase_lo_deg: np.ndarray
+    phase_hi_deg: np.ndarray
+    pole_roots_rad_s: np.ndarray
+    zero_roots_rad_s: np.ndarray
+    note_html: str
 
 
 @dataclass(frozen=True)
@@ -60,6 +99,50 @@ def _tolerances(design: Design, key: str) -> dict[str, Any] | None:
     return {k: v for k, v in stock.items() if any(n[0] == k[0] for n in names)}
 
 
+def _cloud_roots(design: Design, spread) -> tuple[np.ndarray, np.ndarray]:
+    """Every non-zero pole and zero (rad/s) of the first :data:`CLOUD_SAMPLES` samples of a spread."""
+    ev = design.compile()
+    n = min(CLOUD_SAMPLES, spread.samples)
+    cols = [
+        np.asarray(spread.values[name], dtype=float)
+        if name in spread.values
+        else np.full(spread.samples, design.values[name])
+        for name in ev.names
+    ]
+    poles, zeros = [], []
+    for i in range(n):
+        tr = ev.evaluate_tuple(tuple(float(c[i]) for c in cols))
+        poles.append(tr.poles)
+        zeros.append(tr.zeros)
+
+    def joined(roots: list[np.ndarray]) -> np.ndarray:
+        r = np.concatenate(roots) if roots else np.zeros(0, dtype=complex)
+        return r[r != 0]  # origin roots do not move
+
+    return joined(poles), joined(zeros)
+
+
+def spread_frame(run: SpreadRun, plane: PlaneState) -> SpreadFrame:
+    """Map a Monte Carlo run onto the s-plane as ``plane`` draws it (pure; no widget read).
+
+    Parameters
+    ----------
+    run : SpreadRun
+        Bands (Hz, dB, degrees) and sample roots (rad/s).
+    plane : PlaneState
+        The unit (Hz or rad/s) and signed-log reference ``x0`` the pole-zero map is drawn with.
+    """
+    div, x0 = plane.rad_s_per_unit, plane.x0
+
+    def mapped(r: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        return signed_log(r.real / div, x0), signed_log(r.imag / div, x0)
+
+    px, py = mapped(run.pole_roots_rad_s)
+    zx, zy = mapped(run.zero_roots_rad_s)
+    return SpreadFrame(run.curve, run.f_hz, run.mag_lo_db, run.mag_hi_db, run.phase_lo_deg, run.phase_hi_deg,
+                       px, py, zx, zy, run.note_html)
+
+
 class SpreadOverlay:
     """Bands and clouds added to an explorer's Bode figures and s-plane map.
 
@@ -70,7 +153,8 @@ class SpreadOverlay:
     mag_scales, phase_scales : dict
         ``{"x": LogScale, "y": LinearScale}`` of each Bode figure.
     pzmap : PoleZeroView
-        The s-plane view; the clouds use its scales and signed-log mapping.
+        The s-plane view; the clouds are drawn on its figure and scales (their
+        positions come from :func:`spread_frame`, never from the view's widgets).
     """
 
     def __init__(
@@ -130,27 +214,36 @@ class SpreadOverlay:
         bode_mag_fig.marks = [*bode_mag_fig.marks, self.band_mag]
         bode_phase_fig.marks = [*bode_phase_fig.marks, self.band_phase]
         pzmap.fig.marks = [pzmap.fig.marks[0], self.cloud_zeros, self.cloud_poles, *pzmap.fig.marks[1:]]
-        self.pzmap = pzmap
         self.box = widgets.HBox([self.choice, self.note], layout=widgets.Layout(align_items="center"))
         self._writer = TraitWriter()
         self.shown: SpreadFrame | None = None
+        self._note_html = ""
 
     @property
     def active(self) -> bool:
-        """True when an overlay choice other than "off" is selected."""
+        """True when an overlay choice other than "off" is selected (the explorer keeps its own copy)."""
         return self.choice.value != "off"
 
-    def frame(self, design: Design, f_hz: np.ndarray) -> SpreadFrame | None:
-        """Run the Monte Carlo spread of ``design`` on the explorer's grid (None when off or impossible).
+    def run(self, design: Design, f_hz: np.ndarray, choice: str) -> SpreadRun | None:
+        """Run the Monte Carlo spread of ``design`` on the explorer's grid (None when ``choice`` is "off").
+
+        Parameters
+        ----------
+        design : Design
+            The design at the values on screen.
+        f_hz : ndarray
+            The explorer's frequency grid, Hz.
+        choice : str
+            The overlay choice (a key of :data:`SPREAD_CHOICES`), from the explorer's state.
 
         Raises
         ------
         LoopcraftError
             The tolerances do not fit the design (shown beside the choice by the caller).
         """
-        if not self.active:
+        if choice == "off":
             return None
-        tol = _tolerances(design, self.choice.value)
+        tol = _tolerances(design, choice)
         if not tol:
             raise LoopcraftError("this design has no 'tolerances' section; pick a stock spread instead")
         spread = monte_carlo(design, SPREAD_SAMPLES, seed=1, f_hz=f_hz, tolerances=tol)
@@ -162,7 +255,7 @@ class SpreadOverlay:
                 spread.stage_mag_db,
                 spread.stage_phase_deg,
             )
-        px, py, zx, zy = self._clouds(design, spread)
+        poles, zeros = _cloud_roots(design, spread)
         parts = ", ".join(
             f"{k} ±{100 * float(v):g} %" if not isinstance(v, str) else f"{k} ±{v.rstrip('%')} %"
             for k, v in tol.items()
@@ -171,41 +264,24 @@ class SpreadOverlay:
             f'<span style="color:{COLORS["muted"]}; font-size:12px">band: {html.escape(curve)} curve, '
             f"min…max of {SPREAD_SAMPLES} seeded samples ({html.escape(parts)})</span>"
         )
-        return SpreadFrame(
-            curve, np.asarray(spread.f_hz, dtype=float), mag.min, mag.max, ph.min, ph.max, px, py, zx, zy, note
+        return SpreadRun(
+            curve, np.asarray(spread.f_hz, dtype=float), mag.min, mag.max, ph.min, ph.max, poles, zeros, note
         )
 
-    def _clouds(self, design: Design, spread) -> tuple[np.ndarray, ...]:
-        ev = design.compile()
-        n = min(CLOUD_SAMPLES, spread.samples)
-        cols = [
-            np.asarray(spread.values[name], dtype=float)
-            if name in spread.values
-            else np.full(spread.samples, design.values[name])
-            for name in ev.names
-        ]
-        poles, zeros = [], []
-        for i in range(n):
-            tr = ev.evaluate_tuple(tuple(float(c[i]) for c in cols))
-            poles.append(tr.poles)
-            zeros.append(tr.zeros)
-        div = 2 * math.pi if self.pzmap.units.value == "Hz" else 1.0
-        x0 = self.pzmap.x0
+    def draw(self, fr: SpreadFrame | None, note_html: str = "") -> None:
+        """Show a frame, or hide the overlay (None) with ``note_html`` (an error, or "") beside the choice.
 
-        def mapped(roots: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
-            r = np.concatenate(roots) if roots else np.zeros(0, dtype=complex)
-            r = r[r != 0]  # origin roots do not move
-            return signed_log(r.real / div, x0), signed_log(r.imag / div, x0)
-
-        return (*mapped(poles), *mapped(zeros))
-
-    def draw(self, fr: SpreadFrame | None) -> None:
-        """Show a frame, or hide the overlay (None)."""
+        The frame already shown (the same object, the same note) costs nothing: every slider
+        move passes the overlay's frame along, and it changes only when the overlay does.
+        """
+        if fr is self.shown and note_html == self._note_html:
+            return
+        self._note_html = note_html
         w = self._writer
         if fr is None:
             for mark in (self.band_mag, self.band_phase, self.cloud_poles, self.cloud_zeros):
                 w.set(mark, visible=False)
-            w.set(self.note, value="")
+            w.set(self.note, value=note_html)
             self.shown = None
             return
         color = COLORS["loop"] if fr.curve == "loop" else COLORS["actual"] if fr.curve == "actual" else COLORS["ideal"]

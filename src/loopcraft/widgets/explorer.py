@@ -12,6 +12,16 @@ observer, :meth:`Explorer._on_slider`, which
    update message;
 4. rewrites the moved part's entry and readout under a guard (no echo).
 
+The explorer holds one :class:`~loopcraft.widgets._state.ViewState`: the
+values on screen, the s-plane's unit, zoom mode and axis ranges, and the
+overlay choice. The views compute their frames as pure functions of that
+state and the analysis — the pole-zero map and the tolerance clouds from the
+same :class:`~loopcraft.widgets._state.PlaneState`, so they share one unit and
+one signed-log reference — and never read their own widgets back. Every input
+(a slider, the unit or zoom toggle, a pan in the browser, the overlay choice,
+the overlay's refresh) goes through the one update, :meth:`Explorer._redraw`,
+which commits the new state only once its frames are drawn.
+
 If step 1 or 2 fails the error is shown and nothing on screen changes; if
 step 3 fails the last good frames are drawn again. A new design or new
 sections are installed all or nothing: when the first redraw fails, the
@@ -25,9 +35,11 @@ from __future__ import annotations
 
 import asyncio
 import html
+import math
 import os
 from collections.abc import Iterator, Mapping
 from contextlib import contextmanager
+from dataclasses import replace
 from pathlib import Path
 from typing import Any
 
@@ -48,9 +60,10 @@ from ._controls import ComponentPanel, SnapLogSlider, failure_text
 from ._fields import ErrorNote
 from ._formula import FormulaView
 from ._panels import OpAmpPanel, PlantPanel
-from ._pzmap import PoleZeroView
+from ._pzmap import PoleZeroView, plane_for
 from ._sources import FileLoader, NetworkForm
-from ._spread import SpreadOverlay
+from ._spread import SpreadFrame, SpreadOverlay, SpreadRun, spread_frame
+from ._state import PlaneState, ViewState
 from ._theme import COLORS, CSS_CLASS, FONT_STACK
 
 __all__ = ["Explorer", "OWN_NETWORK", "LOADED_DESIGN", "SETTLE_S"]
@@ -160,6 +173,11 @@ class Explorer(widgets.VBox):
         self._settle_handle: asyncio.TimerHandle | None = None
         self._installed = False  # True once a design is on screen (a failed switch can return to it)
         self._last_frames: tuple | None = None  # (analyzer, frames) of the last good draw
+        self._state = ViewState()  # the one view state; committed by _redraw after a good draw
+        self._drawing = False  # True while frames are assigned (scale changes then are our own)
+        self._spread_run: SpreadRun | None = None  # the overlay's last Monte Carlo run
+        self._spread_note = ""  # why there is no run (an error), or ""
+        self._cloud_memo: tuple[SpreadRun, str, float, SpreadFrame] | None = None
 
         self.title = widgets.HTML()
         options = [(t.title, k) for k, t in TOPOLOGIES.items()]
@@ -204,7 +222,11 @@ class Explorer(widgets.VBox):
         self.children = [style, header, self.description, self.source_box, self.status.widget,
                          widgets.HBox([left, right], layout=widgets.Layout(width="100%"))]
         self.picker.observe(self._on_pick, names="value")
-        self.spread.choice.observe(lambda _ch: self._refresh_spread(), names="value")
+        self.spread.choice.observe(self._on_spread_choice, names="value")
+        self.pzmap.units.observe(self._on_units, names="value")
+        self.pzmap.zoom.observe(self._on_zoom, names="value")
+        for scale in (self.pzmap.x_scale, self.pzmap.y_scale):
+            scale.observe(self._on_pan, names=["min", "max"])
         self._set_design(design, key)
 
     # ------------------------------------------------------------------ public state
@@ -236,6 +258,11 @@ class Explorer(widgets.VBox):
         if self._analysis is None:
             raise AnalysisError(f"nothing analysed yet: {self.status.message or 'no update has run'}")
         return self._analysis
+
+    @property
+    def state(self) -> ViewState:
+        """The view state on screen: values (SI), the s-plane's unit, zoom and ranges, the overlay choice."""
+        return self._state
 
     @property
     def f_hz(self) -> np.ndarray:
@@ -290,37 +317,43 @@ class Explorer(widgets.VBox):
             raise
         except Exception as err:  # a numeric failure the model did not foresee
             raise AnalysisError(f"cannot analyse this design: {failure_text(err)}") from err
-        previous = (self._base, self._key, self._analyzer, self._first, self._panel) if self._installed else None
+        previous = ((self._base, self._key, self._analyzer, self._first, self._panel, self._state),
+                    (self._spread_run, self._spread_note)) if self._installed else None
         for c in panel.controls.values():
             c.slider.observe(self._on_slider, names="value")
+        old = self._state.plane
+        # A new design: a new signed-log reference, the ranges fitted afresh; unit and zoom stay.
+        state = replace(self._state, values=dict(design.values), plane=plane_for(first, old.unit, old.zoom))
         try:
-            self._install(design, key, analyzer, first, panel)
+            self._install(design, key, analyzer, first, panel, state)
+            self._run_spread()
             failure = self._redraw(None)
         except Exception as err:  # the views could not take the new design
             failure = failure_text(err)
         if failure is None:
             if previous is not None:
-                previous[-1].close()
+                previous[0][4].close()
             self._installed = True
-            self._refresh_spread()
             return
         if previous is not None:  # put the last good design back, as it was
-            self._install(*previous)
+            self._install(*previous[0])
+            self._spread_run, self._spread_note = previous[1]
             self._redraw(None)
         panel.close()
         raise AnalysisError(failure)
 
-    def _install(self, design: Design, key: str, analyzer: Analyzer, first: Analysis, panel: ComponentPanel) -> None:
-        """Put a design's pieces in place (no drawing); the panel it replaces stays open for a rollback."""
+    def _install(self, design: Design, key: str, analyzer: Analyzer, first: Analysis, panel: ComponentPanel,
+                 state: ViewState) -> None:
+        """Put a design's pieces and its view state in place (no drawing); the replaced panel stays open."""
         self._base = design
         self._analyzer = analyzer
         self._first = first
         self._panel = panel
+        self._state = state
         self._slider_names = {id(c.slider): n for n, c in panel.controls.items()}
         self.components_box.children = [panel.box]
         self.formula.set_design(design.derivation, first.transfer)
         self.bode.set_grid(analyzer.f_hz)
-        self.pzmap.set_design(first)
         self._dragged = None
         self._key = key
         self._show_header(design, key)
@@ -425,12 +458,12 @@ class Explorer(widgets.VBox):
         self._analyzer = analyzer
         self.bode.set_grid(analyzer.f_hz)
         self._amp_shown = None  # new sections: annotate the op-amp loop afresh
-        failure = self._redraw(self._dragged)
+        failure = self._redraw(self._dragged, moved=False)
         if failure is not None:  # put the last good sections back, as they were
             self._base, self._analyzer = old_base, old_analyzer
             self.bode.set_grid(old_analyzer.f_hz)
             self._amp_shown = None
-            self._redraw(self._dragged)
+            self._redraw(self._dragged, moved=False)
             raise AnalysisError(f"cannot use these settings: {failure}")
         self._refresh_spread()
 
@@ -537,23 +570,48 @@ class Explorer(widgets.VBox):
             return
         with self.bode.mag_fig.hold_sync():
             self.bode.draw(frame)
+        last = self._last_frames
+        if last is not None and last[0] is self._analyzer and last[1][2][0] is a:
+            self._last_frames = (last[0], (frame, *last[1][1:]))  # a later redraw reuses what is shown
+
+    # ------------------------------------------------------------------ the tolerance overlay
+    def _run_spread(self) -> None:
+        """The overlay's Monte Carlo run at the current design and values, for the state's choice (or none)."""
+        choice = self._state.spread
+        run, note = None, ""
+        if choice != "off":
+            try:
+                run = self.spread.run(self.design, self.f_hz, choice)
+            except Exception as err:  # a LoopcraftError, or a numeric failure inside the Monte Carlo run
+                note = (f'<span style="color:{COLORS["error"]}; font-size:12px">'
+                        f"{html.escape(failure_text(err))}</span>")
+        self._spread_run, self._spread_note = run, note
+
+    def _cloud_frame(self, plane: PlaneState) -> SpreadFrame | None:
+        """The overlay's frame on ``plane`` (remembered per run, unit and x0: a slider move maps nothing)."""
+        run = self._spread_run
+        if run is None:
+            return None
+        memo = self._cloud_memo
+        if memo is not None and memo[0] is run and memo[1] == plane.unit and memo[2] == plane.x0:
+            return memo[3]
+        fr = spread_frame(run, plane)
+        self._cloud_memo = (run, plane.unit, plane.x0, fr)
+        return fr
 
     def _refresh_spread(self) -> None:
-        """Recompute the tolerance overlay at the current values (not on the slider path)."""
+        """Recompute the tolerance overlay at the current values, then the one update draws it (not per move)."""
         self._spread_stale = False
-        try:
-            fr = self.spread.frame(self.design, self.f_hz)
-        except Exception as err:  # a LoopcraftError, or a numeric failure inside the Monte Carlo run
-            self.spread.draw(None)
-            self.spread.note.value = (f'<span style="color:{COLORS["error"]}; font-size:12px">'
-                                      f"{html.escape(failure_text(err))}</span>")
-            return
-        with self.bode.mag_fig.hold_sync(), self.bode.phase_fig.hold_sync(), self.pzmap.fig.hold_sync():
-            self.spread.draw(fr)
+        self._run_spread()
+        self._redraw(self._dragged, moved=False, reuse=True)
+
+    def _on_spread_choice(self, change) -> None:
+        self._state = replace(self._state, spread=change["new"])
+        self._refresh_spread()
 
     def _spread_after_move(self) -> None:
         """A slider moved: refresh the overlay now (no event loop) or once the slider rests."""
-        if not self.spread.active:
+        if self._state.spread == "off":
             return
         try:
             loop = asyncio.get_running_loop()
@@ -573,32 +631,55 @@ class Explorer(widgets.VBox):
             self.status.show(f"sensitivities unavailable at these values: {failure_text(err)}")
             return None
 
-    def _redraw(self, dragged: str | None) -> str | None:
-        """Compute every view at the slider values, then assign all mark data.
+    def _redraw(self, dragged: str | None, *, plane: PlaneState | None = None, moved: bool | None = None,
+                reuse: bool = False) -> str | None:
+        """The one update: frames computed from the state, all mark data assigned, the state committed.
+
+        Parameters
+        ----------
+        dragged : str or None
+            The part whose corners are highlighted (the last one moved).
+        plane : PlaneState, optional
+            A new s-plane state (unit, zoom, ranges) to show; default the current one.
+        moved : bool, optional
+            A slider has just moved (default: ``dragged`` is not None): the op-amp loop
+            annotation and the overlay may then wait until the slider rests.
+        reuse : bool
+            Only the plane or the overlay changed: reuse the analysis, Bode and formula
+            frames on screen instead of analysing again (when there are any).
 
         Returns
         -------
         str or None
             The error message when the update failed (it is shown; the screen
-            keeps the last good state), else None.
+            and the state keep the last good ones), else None.
         """
-        values = self._panel.values()
+        state = self._state
+        plane = state.plane if plane is None else plane
+        if moved is None:
+            moved = dragged is not None
+        last = self._last_frames
         try:
-            a = self._analyzer.update(values)
-            bode = self.bode.frame(a, self._amplifier_loop(a, dragged))
-            sens = self._sensitivity(values)
-            pz = self.pzmap.frame(a, sens)
-            table, hl = self.formula.frame(a.transfer, sens, dragged)
+            if reuse and last is not None and last[0] is self._analyzer:
+                bode, _pz, (a, sens), table, hl, _cloud = last[1]
+                values = state.values
+            else:
+                values = self._panel.values()
+                a = self._analyzer.update(values)
+                bode = self.bode.frame(a, self._amplifier_loop(a, dragged if moved else None))
+                sens = self._sensitivity(values)
+                table, hl = self.formula.frame(a.transfer, sens, dragged)
+            pz = self.pzmap.frame(a, sens, plane)
+            cloud = self._cloud_frame(plane)
         except Exception as err:  # a LoopcraftError, or a numeric failure the model did not foresee
             msg = f"cannot analyse at these values: {failure_text(err)}"
             self.status.show(msg)
             return msg
-        frames = (bode, pz, (a, sens), table, hl)
+        frames = (bode, pz, (a, sens), table, hl, cloud)
         try:
             self._draw(frames)
         except Exception as err:  # a mark refused its data: put the last good frames back
             msg = f"cannot draw at these values: {failure_text(err)}"
-            last = self._last_frames
             if last is not None and last[0] is self._analyzer:
                 try:
                     self._draw(last[1])
@@ -608,16 +689,71 @@ class Explorer(widgets.VBox):
             return msg
         self._last_frames = (self._analyzer, frames)
         self._analysis = a
+        self._state = ViewState(values, plane.with_ranges(pz.x_range, pz.y_range), state.spread)
         if sens is not None:
             self.status.clear()
-        if dragged is not None:
+        if moved:
             self._spread_after_move()
         return None
 
     def _draw(self, frames: tuple) -> None:
         """Assign computed frames to the marks, one ``hold_sync()`` per figure."""
-        bode, pz, source, table, hl = frames
-        with self.bode.mag_fig.hold_sync(), self.bode.phase_fig.hold_sync(), self.pzmap.fig.hold_sync():
-            self.bode.draw(bode)
-            self.pzmap.draw(pz, source)
-            self.formula.draw(table, hl)
+        bode, pz, source, table, hl, cloud = frames
+        self._drawing = True
+        try:
+            with self.bode.mag_fig.hold_sync(), self.bode.phase_fig.hold_sync(), self.pzmap.fig.hold_sync():
+                self.bode.draw(bode)
+                self.pzmap.draw(pz, source)
+                self.spread.draw(cloud, self._spread_note)
+                self.formula.draw(table, hl)
+        finally:
+            self._drawing = False
+
+    # ------------------------------------------------------------------ s-plane inputs
+    def _on_units(self, change) -> None:
+        """The unit toggle: the map and the clouds are drawn again in the new unit, in one update."""
+        if self._quiet:
+            return
+        failure = self._redraw(self._dragged, plane=self._state.plane.with_unit(change["new"]),
+                               moved=False, reuse=True)
+        if failure is not None:
+            self._set_quietly(self.pzmap.units, change["old"])
+
+    def _on_zoom(self, change) -> None:
+        """The zoom toggle: "auto" fits the roots again, "manual" keeps the ranges and lets the browser pan."""
+        if self._quiet:
+            return
+        failure = self._redraw(self._dragged, plane=self._state.plane.with_zoom(change["new"]),
+                               moved=False, reuse=True)
+        if failure is not None:
+            self._set_quietly(self.pzmap.zoom, change["old"])
+
+    def _on_pan(self, change) -> None:
+        """The browser panned or zoomed the s-plane (manual zoom): its new range enters the state.
+
+        The range is the event's payload (the scale as the browser left it). The ticks
+        follow in the one update; changes the explorer makes itself are ignored.
+        """
+        plane = self._state.plane
+        if self._drawing or plane.zoom != "manual" or plane.x_range is None or plane.y_range is None:
+            return
+        scale = change["owner"]
+        lo, hi = scale.min, scale.max
+        if lo is None or hi is None or not (math.isfinite(lo) and math.isfinite(hi) and lo < hi):
+            return
+        rng = (float(lo), float(hi))
+        if scale is self.pzmap.x_scale:
+            new = plane.with_ranges(rng, plane.y_range)
+        else:
+            new = plane.with_ranges(plane.x_range, rng)
+        if new is plane:
+            return
+        self.pzmap.forget_scales()  # the browser moved them: what the writer last set is stale
+        self._redraw(self._dragged, plane=new, moved=False, reuse=True)
+
+    def _set_quietly(self, toggle: widgets.ToggleButtons, value: str) -> None:
+        self._quiet = True
+        try:
+            toggle.value = value
+        finally:
+            self._quiet = False
