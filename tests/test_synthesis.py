@@ -12,12 +12,12 @@ import math
 import numpy as np
 import pytest
 import scipy.signal as sig
-from loopcraft.plant import BoostVoltageMode, BuckVoltageMode, PeakCurrentBuck
 from scipy.optimize import brentq
 
 from loopcraft.design import Design
 from loopcraft.errors import SynthesisError
 from loopcraft.model.opamp import OpAmp
+from loopcraft.plant import BoostVoltageMode, BuckVoltageMode, PeakCurrentBuck
 from loopcraft.synthesis import (
     RHP_ZERO_CROSSOVER_FRACTION,
     SynthesisResult,
