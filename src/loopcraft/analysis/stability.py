@@ -63,7 +63,14 @@ import numpy as np
 
 from ..errors import AnalysisError
 from ..numeric.asymptote import _exact_phase_deg_u
-from ..numeric.factors import CANCEL_REL_TOL, Factor, FactoredNumeric, cancel_roots, polynomial_roots
+from ..numeric.factors import (
+    CANCEL_REL_TOL,
+    Factor,
+    FactoredNumeric,
+    cancel_roots,
+    drop_cancelled,
+    polynomial_roots,
+)
 
 __all__ = [
     "CANCEL_REL_TOL",
@@ -249,37 +256,6 @@ def _roots_of(fn: FactoredNumeric) -> tuple[np.ndarray, np.ndarray]:
     return cat(z), cat(p)
 
 
-def _cancel(zeros: np.ndarray, poles: np.ndarray, rel_tol: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Remove coinciding zero/pole pairs; return (zeros, poles, cancelled poles).
-
-    The one cancellation policy of the package (:func:`loopcraft.numeric.factors.cancel_roots`).
-    """
-    c = cancel_roots(zeros, poles, rel_tol=rel_tol)
-    return np.asarray(c.zeros, dtype=complex), np.asarray(c.poles, dtype=complex), c.cancelled
-
-
-def _poly_asc(roots: np.ndarray) -> np.ndarray:
-    """Ascending coefficients of Π(1 - s/r) (real), conjugate pairs as real quadratics."""
-    out = np.array([1.0])
-    roots = np.asarray(roots, dtype=complex)
-    used = np.zeros(len(roots), dtype=bool)
-    for i, r in enumerate(roots):
-        if used[i]:
-            continue
-        used[i] = True
-        if abs(r.imag) <= 1e-12 * abs(r):
-            out = np.convolve(out, [1.0, -1.0 / r.real])
-            continue
-        # its conjugate partner
-        cand = [j for j in range(len(roots)) if not used[j] and abs(roots[j] - r.conjugate()) <= 1e-9 * abs(r)]
-        if not cand:
-            raise AnalysisError(f"complex root {r!r} has no conjugate partner; the loop must have real coefficients")
-        used[cand[0]] = True
-        m2 = abs(r) ** 2
-        out = np.convolve(out, [1.0, -2.0 * r.real / m2, 1.0 / m2])
-    return out
-
-
 def _pad_add(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     out = np.zeros(max(len(a), len(b)))
     out[: len(a)] += a
@@ -307,26 +283,14 @@ def _parts(loop: FactoredNumeric) -> _Parts:
     if not (math.isfinite(loop.gain) and loop.gain != 0.0):
         raise AnalysisError(f"loop gain K must be finite and non-zero (got {loop.gain!r})")
     z, p = _roots_of(loop)
-    z, p, cancelled = _cancel(z, p, CANCEL_REL_TOL)
-    n = loop.origin_order
-    n_asc = np.concatenate([np.zeros(max(n, 0)), _poly_asc(z)])
-    d_asc = np.concatenate([np.zeros(max(-n, 0)), _poly_asc(p)])
-    if not (np.all(np.isfinite(n_asc)) and np.all(np.isfinite(d_asc))):
+    cancellation = cancel_roots(z, p, rel_tol=CANCEL_REL_TOL)  # the package's one cancellation policy
+    reduced = drop_cancelled(loop, cancellation)
+    num, den = reduced.tf()  # descending powers, built factor by factor (no roots back to coefficients)
+    if not (np.all(np.isfinite(num)) and np.all(np.isfinite(den))):
         raise AnalysisError("the loop's polynomials overflow: its corners span too many decades")
-    # The reduced factored form (for frequency responses without the cancelled pairs).
-    keep = _reduced_factors(loop, cancelled)
-    return _Parts(loop.gain, n, n_asc, d_asc, z, p, cancelled, keep)
-
-
-def _reduced_factors(loop: FactoredNumeric, cancelled: np.ndarray) -> FactoredNumeric:
-    if cancelled.size == 0:
-        return loop
-    from ..numeric.factors import factors_from_roots
-
-    z, p = _roots_of(loop)
-    z, p, _ = _cancel(z, p, CANCEL_REL_TOL)
-    red = factors_from_roots(z, p, loop.gain)
-    return FactoredNumeric(loop.gain, loop.origin_order + red.origin_order, red.factors)
+    z, p = _roots_of(reduced)
+    return _Parts(loop.gain, loop.origin_order, num[::-1] / loop.gain, den[::-1], z, p, cancellation.cancelled,
+                  reduced)
 
 
 def _count(roots: np.ndarray) -> tuple[int, int]:

@@ -219,7 +219,10 @@ def _natural_key(text: str) -> tuple[tuple[int, int, str], ...]:
 
 def _factor_key(f: SymbolicFactor) -> tuple:
     """Order of a symbolic factor for numbering: degree, the parts it depends on, its formula text."""
-    parts = sorted((str(x) for c in f.coefficients for x in sp.sympify(c).free_symbols), key=_natural_key)
+    # The coefficients are sympy expressions built by the derivation from validated designators;
+    # no text is parsed here.
+    symbols = (x for c in f.coefficients if isinstance(c, sp.Basic) for x in c.free_symbols)
+    parts = sorted((str(x) for x in symbols), key=_natural_key)
     text = f"{f.corner_text} {f.q_text or ''}" if f.degree <= 2 else formula_text(f.normalized_expr())
     return (f.degree, tuple(_natural_key(p) for p in dict.fromkeys(parts)), _natural_key(text))
 
